@@ -1,0 +1,17 @@
+"""assimbench: twin experiments for data assimilation on chaotic low-order models.
+
+Importing the package switches JAX to float64 on the CPU before any array is
+created; every module of the package relies on that.
+"""
+
+import jax
+
+jax.config.update("jax_enable_x64", True)
+jax.config.update("jax_platforms", "cpu")
+
+__version__ = "0.1.0"
+
+from assimbench.api import compose_config, run, run_experiment  # noqa: E402
+from assimbench.results import read_result, write_result  # noqa: E402
+
+__all__ = ["compose_config", "run", "run_experiment", "read_result", "write_result", "__version__"]

@@ -1,0 +1,124 @@
+"""Compose a configuration from the ``configs/`` groups and overrides.
+
+Used by the Python API and by the command line's check of every job before
+any work starts. Hydra's and OmegaConf's composition errors come back as a
+:class:`~assimbench.validation.ConfigError` with one line naming the override
+and what is allowed (with a "did you mean" for a mistyped key).
+"""
+
+import difflib
+import re
+from importlib import resources
+
+from hydra import compose, initialize_config_dir
+from hydra.core.global_hydra import GlobalHydra
+from hydra.errors import HydraException
+from omegaconf import DictConfig, OmegaConf
+from omegaconf.errors import OmegaConfBaseException
+
+from assimbench.registry import FILTERS, MODELS
+from assimbench.schema import SCHEMA_PREFIX, register_schemas
+from assimbench.validation import ConfigError, check_config
+
+GROUPS = ("model", "observation", "filter")
+
+
+def config_dir() -> str:
+    """Absolute path of the packaged configuration folder."""
+    return str(resources.files("assimbench.configs"))
+
+
+def group_options(group: str) -> list[str]:
+    """The selectable options of a config group (YAML files of its folder)."""
+    folder = resources.files("assimbench.configs").joinpath(group)
+    return sorted(p.name[:-5] for p in folder.iterdir() if p.name.endswith(".yaml"))
+
+
+def _split(override: str):
+    key, sep, value = override.partition("=")
+    return key.strip().lstrip("+~"), value.strip(), bool(sep)
+
+
+def _check_group_choices(overrides) -> None:
+    for override in overrides:
+        key, value, has_value = _split(override)
+        if has_value and key in GROUPS:
+            options = group_options(key)
+            if value not in options:
+                allowed = ", ".join(options)
+                raise ConfigError(f"{key}={value} is not allowed: unknown option; the options are {allowed}")
+
+
+def _all_keys(cfg: DictConfig, prefix: str = "") -> list[str]:
+    keys = []
+    for key in cfg:
+        full = f"{prefix}{key}"
+        value = cfg._get_node(key)
+        if isinstance(value, DictConfig):
+            keys.extend(_all_keys(value, full + "."))
+        else:
+            keys.append(full)
+    return keys
+
+
+def _compose(overrides) -> DictConfig:
+    register_schemas()
+    if GlobalHydra.instance().is_initialized():
+        GlobalHydra.instance().clear()
+    with initialize_config_dir(config_dir=config_dir(), version_base="1.3", job_name="assimbench"):
+        return compose(config_name="config", overrides=list(overrides))
+
+
+def _first_line(err: BaseException) -> str:
+    text = str(err).strip().splitlines()
+    return text[0].strip() if text else err.__class__.__name__
+
+
+def _translate(err: BaseException, overrides) -> ConfigError:
+    message = str(err)
+    unknown = re.search(r"Could not override '([^']+)'", message) or re.search(
+        r"Key '([^']+)' (?:is )?not in", message
+    )
+    if unknown:
+        key = unknown.group(1)
+        group_choices = [o for o in overrides if _split(o)[0] in GROUPS]
+        known = _all_keys(_compose(group_choices))
+        if "." not in key and not message.startswith("Could not override"):
+            parent = next((_split(o)[0] for o in overrides if _split(o)[0].endswith("." + key)), key)
+            key = parent
+        close = difflib.get_close_matches(key, known, n=1, cutoff=0.6)
+        hint = f"; did you mean {close[0]}?" if close else "; the keys are listed by assimbench --cfg job"
+        return ConfigError(f"{key} is not a key of this configuration{hint}")
+    if "Ambiguous value for argument" in message:
+        arg = re.search(r"argument '([^']+)'", message)
+        return ConfigError(f"{arg.group(1) if arg else 'override'}: a list of values is a sweep; add --multirun (-m)")
+    cause = err.__cause__ if err.__cause__ is not None else err
+    failing = re.search(r"override (\S+)", message)
+    where = failing.group(1) if failing else "configuration"
+    return ConfigError(f"{where} is not allowed: {_first_line(cause)}")
+
+
+def compose_config(overrides=(), validate: bool = True) -> DictConfig:
+    """Compose ``configs/config.yaml`` with Hydra-style ``overrides`` (e.g. "filter.members=10").
+
+    Returns the typed DictConfig; with ``validate`` every value range and
+    cross-key rule is checked too. Raises ConfigError with a one-line message.
+    """
+    overrides = list(overrides)
+    _check_group_choices(overrides)
+    try:
+        cfg = _compose(overrides)
+        OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
+    except (HydraException, OmegaConfBaseException) as err:
+        raise _translate(err, overrides) from None
+    if validate:
+        validate_config(cfg)
+    return cfg
+
+
+def validate_config(cfg: DictConfig) -> None:
+    """Value ranges and cross-key rules (see :mod:`assimbench.validation`)."""
+    check_config(cfg, MODELS, FILTERS)
+
+
+__all__ = ["compose_config", "validate_config", "group_options", "config_dir", "GROUPS", "SCHEMA_PREFIX"]

@@ -1,0 +1,108 @@
+"""The twin experiment as jitted programs: start-up and one chunk of cycles.
+
+Cycle k (k = 1, 2, ...) ends at model time k * interval. In one chunk of L
+cycles the truth is integrated and observed first (one scan), then the filter
+cycles over those observations (a second scan): forecast every member from the
+previous analysis (a vmap of the RK4 flow), then analyse with y_k.
+
+Randomness is keyed by the replicate key and the absolute cycle number only,
+never by the chunk, so results do not depend on the chunk length:
+
+    replicate key  r = fold_in(PRNGKey(seed), replicate)
+    first guess    fold_in(r, 0)   truth start, before spin-up
+    observations   fold_in(fold_in(r, 1), k)   noise of y_k
+    ensemble       fold_in(r, 2)   initial ensemble
+    filter         fold_in(fold_in(r, 3), k)   filter randomness at cycle k (0 for init)
+
+Truth and observations depend on (seed, replicate, model, observation
+settings) alone, so every filter and every setting run on a seed sees the same
+data: differences between them are paired.
+
+The initial ensemble is the spun-up truth at time 0 plus independent
+N(0, initial_spread^2) noise on every variable of every member.
+"""
+
+from typing import NamedTuple
+
+import jax
+import jax.numpy as jnp
+
+from assimbench.diagnostics import cycle_diagnostics
+from assimbench.filters import Filter
+from assimbench.integrators import make_flow
+from assimbench.models import Model
+from assimbench.observations import ObservationOperator
+
+
+class TwinSetup(NamedTuple):
+    """The static parts of an experiment (they fix shapes and code paths)."""
+
+    model: Model
+    operator: ObservationOperator
+    filter: Filter
+    steps_per_cycle: int
+
+
+class CycleCarry(NamedTuple):
+    """What one chunk hands to the next, per replicate."""
+
+    truth: jax.Array  # (n,)
+    filter_state: tuple  # the filter's NamedTuple state
+
+
+def replicate_keys(seed: int, replicates: int) -> jax.Array:
+    """(replicates, 2) uint32 keys: fold_in(PRNGKey(seed), r) for r = 0..replicates-1."""
+    base = jax.random.PRNGKey(seed)
+    return jax.vmap(lambda r: jax.random.fold_in(base, r))(jnp.arange(replicates))
+
+
+def make_start(setup: TwinSetup):
+    """Return jitted ``start(keys, settings) -> CycleCarry`` batched over replicates."""
+    model = setup.model
+    spinup = make_flow(model.tendency, model.dt, max(1, round(model.spinup_time / model.dt)))
+
+    def start_one(rkey, settings):
+        truth = spinup(model.first_guess(jax.random.fold_in(rkey, 0), settings["model"]), settings["model"])
+        noise = jax.random.normal(jax.random.fold_in(rkey, 2), (setup.filter.members, model.size))
+        ensemble = truth + settings["initial_spread"] * noise
+        filter_key = jax.random.fold_in(jax.random.fold_in(rkey, 3), 0)
+        return CycleCarry(truth=truth, filter_state=setup.filter.init(filter_key, ensemble, settings))
+
+    return jax.jit(jax.vmap(start_one, in_axes=(0, None)))
+
+
+def make_chunk(setup: TwinSetup, length: int):
+    """Return jitted ``chunk(carry, keys, first_cycle, settings) -> (carry, series)``.
+
+    Runs cycles first_cycle .. first_cycle + length - 1 for every replicate
+    (vmapped); ``series`` maps each diagnostic name to a (replicates, length)
+    array. ``first_cycle`` and ``settings`` are traced, so one compiled
+    program serves every chunk and every value of the swept floats.
+    """
+    model, operator, filt = setup.model, setup.operator, setup.filter
+    flow = make_flow(model.tendency, model.dt, setup.steps_per_cycle)
+    forecast_members = jax.vmap(flow, in_axes=(0, None))
+
+    def chunk_one(carry, rkey, first_cycle, settings):
+        obs_key = jax.random.fold_in(rkey, 1)
+        filter_key = jax.random.fold_in(rkey, 3)
+        cycles = first_cycle + jnp.arange(length)
+
+        def truth_step(x, k):
+            x = flow(x, settings["model"])
+            noise = jax.random.normal(jax.random.fold_in(obs_key, k), (operator.size,))
+            return x, (x, operator(x) + settings["observation"]["error_std"] * noise)
+
+        truth_end, (truths, observations) = jax.lax.scan(truth_step, carry.truth, cycles)
+
+        def cycle(state, inputs):
+            k, truth, y = inputs
+            forecast = forecast_members(state.members, settings["model"])
+            state = state._replace(members=forecast)
+            analysed, _info = filt.analyse(jax.random.fold_in(filter_key, k), state, y, settings)
+            return analysed, cycle_diagnostics(truth, forecast, analysed.members)
+
+        state_end, series = jax.lax.scan(cycle, carry.filter_state, (cycles, truths, observations))
+        return CycleCarry(truth=truth_end, filter_state=state_end), series
+
+    return jax.jit(jax.vmap(chunk_one, in_axes=(0, 0, None, None)))

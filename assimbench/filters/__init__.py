@@ -1,0 +1,34 @@
+"""Filters as small named pairs of pure functions.
+
+A filter is ``init(key, initial_ensemble, settings) -> state`` and
+``analyse(key, state, y, settings) -> (state, info)``. Every state is a
+NamedTuple pytree with at least a ``members`` field of shape (N, n), which the
+cycle forecasts with the model; ``info`` is a dict of per-cycle arrays the
+filter wants to report. ``settings`` is the nested dict of traced floats
+(``settings["filter"]["inflation"]``, ``settings["observation"]["error_std"]``...).
+"""
+
+from typing import Callable, NamedTuple
+
+import jax
+
+
+class Filter(NamedTuple):
+    """A named (init, analyse) pair; ``members`` is the static ensemble size."""
+
+    name: str
+    members: int
+    init: Callable
+    analyse: Callable
+
+
+class EnsembleState(NamedTuple):
+    """State of a deterministic ensemble filter: the members, (N, n)."""
+
+    members: jax.Array
+
+
+def keep_ensemble(key, initial_ensemble, settings) -> EnsembleState:
+    """``init`` for filters whose whole state is the ensemble."""
+    del key, settings
+    return EnsembleState(members=initial_ensemble)

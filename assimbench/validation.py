@@ -1,0 +1,94 @@
+"""Value ranges and cross-key rules, checked before any work starts.
+
+Each failure is a :class:`ConfigError` whose message is one line naming the
+key, the value given and what is allowed.
+"""
+
+import math
+
+from omegaconf import DictConfig
+
+
+class ConfigError(ValueError):
+    """A configuration value that is not allowed; the message is one line."""
+
+
+def _fail(key: str, value, allowed: str):
+    raise ConfigError(f"{key}={value!r} is not allowed: {allowed}")
+
+
+def _integer(cfg, key: str, minimum: int, allowed: str):
+    value = _get(cfg, key)
+    if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
+        _fail(key, value, allowed)
+    return value
+
+
+def _real(cfg, key: str, allowed: str, minimum=None, strict=True):
+    value = _get(cfg, key)
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        _fail(key, value, allowed)
+    if minimum is not None and (value <= minimum if strict else value < minimum):
+        _fail(key, value, allowed)
+    return float(value)
+
+
+def _get(cfg, key: str):
+    node = cfg
+    for part in key.split("."):
+        node = node[part]
+    return node
+
+
+def steps_per_cycle(interval: float, dt: float) -> int:
+    """Number of RK4 steps in one interval, or 0 when it is not a whole multiple of dt."""
+    steps = round(interval / dt)
+    if steps >= 1 and abs(steps * dt - interval) <= 1e-9 * max(interval, dt):
+        return steps
+    return 0
+
+
+def check_config(cfg: DictConfig, model_names, filter_names) -> None:
+    """Raise ConfigError for the first value or combination that is not allowed."""
+    from assimbench.registry import STATE_SIZE
+
+    model_name = _get(cfg, "model.name")
+    if model_name not in model_names:
+        _fail("model.name", model_name, "choose the model with model=" + "|".join(sorted(model_names)))
+    filter_name = _get(cfg, "filter.name")
+    if filter_name not in filter_names:
+        _fail("filter.name", filter_name, "choose the filter with filter=" + "|".join(sorted(filter_names)))
+
+    dt = _real(cfg, "model.dt", "a finite time step > 0", minimum=0.0)
+    if model_name == "lorenz96":
+        _integer(cfg, "model.size", 4, "an integer >= 4")
+        _real(cfg, "model.forcing", "a finite number")
+    if model_name == "lorenz63":
+        for key in ("model.sigma", "model.rho", "model.beta"):
+            _real(cfg, key, "a finite number")
+    size = STATE_SIZE[model_name](cfg.model)
+
+    interval = _real(cfg, "observation.interval", "a finite model time > 0", minimum=0.0)
+    if steps_per_cycle(interval, dt) == 0:
+        _fail("observation.interval", interval, f"a whole multiple (>= 1) of model.dt={dt}")
+    _integer(cfg, "observation.stride", 1, f"an integer from 1 to the state size {size}")
+    if cfg.observation.stride > size:
+        _fail("observation.stride", cfg.observation.stride, f"an integer from 1 to the state size {size}")
+    _real(cfg, "observation.error_std", "a finite standard deviation > 0", minimum=0.0)
+
+    _integer(cfg, "filter.members", 2, "an integer >= 2")
+    _real(cfg, "filter.inflation", "a finite factor >= 1 (1 = no inflation)", minimum=1.0, strict=False)
+
+    cycles = _integer(cfg, "cycles", 1, "an integer >= 1")
+    burn_in = _integer(cfg, "burn_in", 0, f"an integer from 0 to cycles - 1 = {cycles - 1}")
+    if burn_in >= cycles:
+        _fail("burn_in", burn_in, f"an integer from 0 to cycles - 1 = {cycles - 1}")
+    seed = _integer(cfg, "seed", 0, "an integer from 0 to 2**32 - 1")
+    if seed >= 2**32:
+        _fail("seed", seed, "an integer from 0 to 2**32 - 1")
+    _integer(cfg, "replicates", 1, "an integer >= 1")
+    _integer(cfg, "chunk_cycles", 1, "an integer >= 1")
+    _real(cfg, "initial_spread", "a finite standard deviation >= 0", minimum=0.0, strict=False)
+    output = cfg.output
+    if output is not None and (not isinstance(output, str) or not output.strip()):
+        _fail("output", output, "a file path, or null for no file")
