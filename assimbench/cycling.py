@@ -71,6 +71,30 @@ def make_start(setup: TwinSetup):
     return jax.jit(jax.vmap(start_one, in_axes=(0, None)))
 
 
+def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycle: int, length: int):
+    """Return ``truth_chunk(truth, rkey, first_cycle, settings) -> (truth_end, truths, ys)``.
+
+    Integrates the truth over ``length`` cycles from ``truth`` (n,) and
+    observes it: y_k = h(x_k) + error_std * e_k, e_k ~ N(0, I) drawn from
+    fold_in(fold_in(rkey, 1), k). truths: (length, n); ys: (length, p).
+    Depends on nothing of the filter.
+    """
+    flow = make_flow(model.tendency, model.dt, steps_per_cycle)
+
+    def truth_chunk(truth, rkey, first_cycle, settings):
+        obs_key = jax.random.fold_in(rkey, 1)
+
+        def step(x, k):
+            x = flow(x, settings["model"])
+            noise = jax.random.normal(jax.random.fold_in(obs_key, k), (operator.size,))
+            return x, (x, operator(x) + settings["observation"]["error_std"] * noise)
+
+        truth_end, (truths, ys) = jax.lax.scan(step, truth, first_cycle + jnp.arange(length))
+        return truth_end, truths, ys
+
+    return truth_chunk
+
+
 def make_chunk(setup: TwinSetup, length: int):
     """Return jitted ``chunk(carry, keys, first_cycle, settings) -> (carry, series)``.
 
@@ -79,21 +103,14 @@ def make_chunk(setup: TwinSetup, length: int):
     array. ``first_cycle`` and ``settings`` are traced, so one compiled
     program serves every chunk and every value of the swept floats.
     """
-    model, operator, filt = setup.model, setup.operator, setup.filter
+    model, filt = setup.model, setup.filter
+    truth_chunk = make_truth_chunk(model, setup.operator, setup.steps_per_cycle, length)
     flow = make_flow(model.tendency, model.dt, setup.steps_per_cycle)
     forecast_members = jax.vmap(flow, in_axes=(0, None))
 
     def chunk_one(carry, rkey, first_cycle, settings):
-        obs_key = jax.random.fold_in(rkey, 1)
         filter_key = jax.random.fold_in(rkey, 3)
-        cycles = first_cycle + jnp.arange(length)
-
-        def truth_step(x, k):
-            x = flow(x, settings["model"])
-            noise = jax.random.normal(jax.random.fold_in(obs_key, k), (operator.size,))
-            return x, (x, operator(x) + settings["observation"]["error_std"] * noise)
-
-        truth_end, (truths, observations) = jax.lax.scan(truth_step, carry.truth, cycles)
+        truth_end, truths, observations = truth_chunk(carry.truth, rkey, first_cycle, settings)
 
         def cycle(state, inputs):
             k, truth, y = inputs
@@ -102,6 +119,7 @@ def make_chunk(setup: TwinSetup, length: int):
             analysed, _info = filt.analyse(jax.random.fold_in(filter_key, k), state, y, settings)
             return analysed, cycle_diagnostics(truth, forecast, analysed.members)
 
+        cycles = first_cycle + jnp.arange(length)
         state_end, series = jax.lax.scan(cycle, carry.filter_state, (cycles, truths, observations))
         return CycleCarry(truth=truth_end, filter_state=state_end), series
 
