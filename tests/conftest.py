@@ -1,0 +1,20 @@
+"""Shared test set-up: float64 JAX on the CPU before any array exists."""
+
+import os
+
+os.environ.setdefault("JAX_PLATFORMS", "cpu")
+
+import jax  # noqa: E402
+
+jax.config.update("jax_enable_x64", True)
+
+import assimbench  # noqa: E402,F401  (its import also switches x64 on; kept explicit here)
+import pytest  # noqa: E402
+
+# ASSIMBENCH_LONG=1 runs the long reproductions in full; CI runs the short forms.
+LONG = os.environ.get("ASSIMBENCH_LONG", "") == "1"
+
+
+@pytest.fixture
+def long_run():
+    return LONG
