@@ -77,6 +77,7 @@ class ResultWriter:
             )
             ds.attrs["long_name"] = long_name
             ds.attrs["units"] = "state units"
+            ds.attrs["coordinates"] = "time"  # netCDF convention: time is an auxiliary coordinate
             ds.dims[0].attach_scale(rep)
             ds.dims[1].attach_scale(cycle)
             self._series[name] = ds
@@ -109,6 +110,8 @@ class ResultWriter:
         for name, values in per_replicate.items():
             ds = group.create_dataset(name, data=np.asarray(values, dtype=np.float64))
             ds.attrs["long_name"] = "time mean after burn-in of " + name
+            ds.attrs["units"] = "state units"
+            ds.dims[0].attach_scale(f["replicate"])
         f.attrs.update(attrs)
         f.attrs["complete"] = True
         f.close()

@@ -1,0 +1,109 @@
+"""The command line: the demo end to end, a multirun, and bad input refused in one line."""
+
+import os
+import subprocess
+import sys
+
+import h5py
+import pytest
+
+from assimbench import cli
+
+SMALL = ["cycles=30", "burn_in=5", "model.size=10", "filter.members=6"]
+
+
+def _command():
+    script = os.path.join(os.path.dirname(sys.executable), "assimbench")
+    return [script] if os.path.exists(script) else [sys.executable, "-m", "assimbench"]
+
+
+def _run(args, cwd):
+    return subprocess.run(_command() + list(args), cwd=cwd, capture_output=True, text=True, timeout=600)
+
+
+# (override, words the one-line message must contain)
+BAD_INPUT = [
+    (["model=lorenz99"], ["model=lorenz99", "lorenz63, lorenz96"]),
+    (["filter=kalman"], ["filter=kalman", "etkf"]),
+    (["observation=nowhere"], ["observation=nowhere", "every_station"]),
+    (["cycles=abc"], ["cycles", "Integer"]),
+    (["filter.members=ten"], ["filter.members", "Integer"]),
+    (["filter.inflation=large"], ["filter.inflation", "Float"]),
+    (["filter.members=1"], ["filter.members=1", ">= 2"]),
+    (["filter.inflation=0.9"], ["filter.inflation=0.9", ">= 1"]),
+    (["observation.error_std=0"], ["observation.error_std", "> 0"]),
+    (["observation.error_std=-1"], ["observation.error_std", "> 0"]),
+    (["observation.interval=0.055"], ["observation.interval", "multiple", "model.dt"]),
+    (["observation.interval=0"], ["observation.interval", "> 0"]),
+    (["burn_in=3000"], ["burn_in=3000", "cycles - 1"]),
+    (["cycles=0"], ["cycles=0", ">= 1"]),
+    (["observation.stride=41"], ["observation.stride=41", "40"]),
+    (["model=lorenz63", "observation.stride=4"], ["observation.stride=4", "3"]),
+    (["model.size=3"], ["model.size=3", ">= 4"]),
+    (["model.dt=-0.01"], ["model.dt", "> 0"]),
+    (["model.forcing=nan"], ["model.forcing", "finite"]),
+    (["replicates=0"], ["replicates=0", ">= 1"]),
+    (["seed=-1"], ["seed=-1", "2**32"]),
+    (["initial_spread=-1"], ["initial_spread", ">= 0"]),
+    (["model.sise=50"], ["model.sise", "did you mean model.size"]),
+    (["filter.inflaton=1.1"], ["filter.inflaton", "did you mean filter.inflation"]),
+    (["cylces=10"], ["cylces", "did you mean cycles"]),
+    (["filter.members=10,20"], ["filter.members=10,20", "--multirun"]),
+    (["cycles=["], ["cycles=[", "key=value"]),
+    (["-m", "filter.members=10,1"], ["filter.members=1", ">= 2"]),
+]
+
+
+@pytest.mark.parametrize("args, words", BAD_INPUT, ids=[" ".join(a) for a, _ in BAD_INPUT])
+def test_bad_input_is_one_line_exit_two_and_nothing_written(args, words, tmp_path, monkeypatch, capsys):
+    monkeypatch.chdir(tmp_path)
+    status = cli.main(args)
+    captured = capsys.readouterr()
+    assert status == 2
+    lines = captured.err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("assimbench: error: "), captured.err
+    for word in words:
+        assert word in lines[0], (word, lines[0])
+    assert captured.out == ""
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_bad_input_from_the_console_script_exits_two_without_traceback(tmp_path):
+    done = _run(["filter.members=1"], tmp_path)
+    assert done.returncode == 2
+    assert done.stderr.strip().count("\n") == 0 and "Traceback" not in done.stderr
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_the_demo_runs_end_to_end_with_no_arguments(tmp_path):
+    """`assimbench` alone: the 40-station ring, 20-member ETKF; prints a summary and the file path."""
+    done = _run([], tmp_path)
+    assert done.returncode == 0, done.stderr
+    out = done.stdout
+    assert "RMSE" in out and "spread" in out and "result:" in out
+    path = out.split("result:")[1].split()[0]
+    assert os.path.isfile(path) and path.startswith(str(tmp_path))
+    with h5py.File(path, "r") as f:
+        assert f.attrs["complete"]
+        assert 0.15 < f["summary"].attrs["rmse_analysis"] < 0.22  # published band, see test_cycling
+        assert f["rmse_analysis"].shape == (1, 3000)
+
+
+def test_an_absolute_output_path_is_used_as_given(tmp_path):
+    target = tmp_path / "here" / "mine.h5"
+    done = _run(SMALL + [f"output={target}"], tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert target.is_file()
+
+
+def test_a_multirun_writes_one_file_per_job(tmp_path):
+    done = _run(["-m", "filter.members=5,7", "filter.inflation=1.02,1.1"] + SMALL[:-1], tmp_path)
+    assert done.returncode == 0, done.stderr
+    files = sorted(tmp_path.glob("sweeps/*/*/*/result.h5"))
+    assert len(files) == 4
+    seen = set()
+    for path in files:
+        with h5py.File(path, "r") as f:
+            assert f.attrs["complete"]
+            seen.add(f.attrs["config"].split("members: ")[1].split()[0])
+    assert seen == {"5", "7"}
