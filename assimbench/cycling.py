@@ -76,7 +76,8 @@ def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycl
 
     Integrates the truth over ``length`` cycles from ``truth`` (n,) and
     observes it: y_k = h(x_k) + error_std * e_k, e_k ~ N(0, I) drawn from
-    fold_in(fold_in(rkey, 1), k). truths: (length, n); ys: (length, p).
+    fold_in(fold_in(rkey, 1), k), one draw per grid point (so nested
+    networks share the noise of their common stations). truths: (length, n); ys: (length, p).
     Depends on nothing of the filter.
     """
     flow = make_flow(model.tendency, model.dt, steps_per_cycle)
@@ -86,7 +87,7 @@ def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycl
 
         def step(x, k):
             x = flow(x, settings["model"])
-            noise = jax.random.normal(jax.random.fold_in(obs_key, k), (operator.size,))
+            noise = operator.standard_noise(jax.random.fold_in(obs_key, k), model.size)
             return x, (x, operator(x) + settings["observation"]["error_std"] * noise)
 
         truth_end, (truths, ys) = jax.lax.scan(step, truth, first_cycle + jnp.arange(length))

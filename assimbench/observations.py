@@ -23,6 +23,15 @@ class ObservationOperator(NamedTuple):
     positions: np.ndarray
     stride: int
 
+    def standard_noise(self, key: jax.Array, state_size: int) -> jax.Array:
+        """N(0, I) noise of the observed stations, (p,).
+
+        One draw per grid point, then the observed ones are taken: a station
+        gets the same noise whichever other stations are observed, so two
+        networks compared on the same seed differ only where they differ.
+        """
+        return jax.random.normal(key, (state_size,))[self.indices]
+
     @property
     def size(self) -> int:
         return int(self.indices.shape[0])

@@ -84,6 +84,18 @@ def test_truth_and_observations_depend_on_the_seed_alone():
     assert not np.array_equal(np.asarray(other_seed), np.asarray(replicate_keys(11, 2)))
 
 
+def test_nested_networks_share_the_observations_of_their_common_stations():
+    """Every second station of the full network sees exactly the data of the half network."""
+    series = {}
+    for stride in (1, 2):
+        _, setup, settings = _setup([f"observation.stride={stride}"])
+        keys = replicate_keys(4, 1)
+        carry = make_start(setup)(keys, settings)
+        truth_chunk = jax.jit(make_truth_chunk(setup.model, setup.operator, setup.steps_per_cycle, 5))
+        series[stride] = np.asarray(truth_chunk(carry.truth[0], keys[0], 1, settings)[2])
+    np.testing.assert_array_equal(series[1][:, ::2], series[2])
+
+
 def test_observation_errors_have_the_configured_statistics():
     """y - h(truth) over many cycles has mean 0 and standard deviation error_std (z-test, fixed key)."""
     _, setup, settings = _setup(["observation.error_std=0.5", "observation.stride=3"])
