@@ -9,6 +9,7 @@ and what is allowed (with a "did you mean" for a mistyped key).
 import difflib
 import re
 from importlib import resources
+from pathlib import Path
 
 from hydra import compose, initialize_config_dir
 from hydra.core.global_hydra import GlobalHydra
@@ -23,14 +24,23 @@ from assimbench.validation import ConfigError, check_config
 GROUPS = ("model", "observation", "filter")
 
 
+def _config_root():
+    try:
+        return resources.files("assimbench.configs")
+    except ModuleNotFoundError:
+        # Imported from a source checkout that was not installed: configs/ is
+        # next to the package folder (installing maps it to assimbench.configs).
+        return Path(__file__).resolve().parent.parent / "configs"
+
+
 def config_dir() -> str:
-    """Absolute path of the packaged configuration folder."""
-    return str(resources.files("assimbench.configs"))
+    """Absolute path of the configuration folder (packaged as assimbench.configs)."""
+    return str(_config_root())
 
 
 def group_options(group: str) -> list[str]:
     """The selectable options of a config group (YAML files of its folder)."""
-    folder = resources.files("assimbench.configs").joinpath(group)
+    folder = _config_root().joinpath(group)
     return sorted(p.name[:-5] for p in folder.iterdir() if p.name.endswith(".yaml"))
 
 
