@@ -115,10 +115,10 @@ def make_chunk(setup: TwinSetup, length: int):
 
         def cycle(state, inputs):
             k, truth, y = inputs
-            forecast = forecast_members(state.members, settings["model"])
-            state = state._replace(members=forecast)
+            if filt.runs_model:
+                state = state._replace(members=forecast_members(state.members, settings["model"]))
             analysed, _info = filt.analyse(jax.random.fold_in(filter_key, k), state, y, settings)
-            return analysed, cycle_diagnostics(truth, forecast, analysed.members)
+            return analysed, cycle_diagnostics(truth, state, analysed)
 
         cycles = first_cycle + jnp.arange(length)
         state_end, series = jax.lax.scan(cycle, carry.filter_state, (cycles, truths, observations))

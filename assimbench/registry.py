@@ -6,7 +6,14 @@ config node into the static component and its dynamic settings (a dict of
 floats that is traced, so sweeps over them need no recompile).
 """
 
+from assimbench.climatology import climatology
+from assimbench.filters.enkf import make_enkf
+from assimbench.filters.ensrf import make_ensrf
 from assimbench.filters.etkf import make_etkf
+from assimbench.filters.letkf import make_letkf
+from assimbench.filters.reference import make_climatology, make_free_run
+from assimbench.filters.sir import make_sir
+from assimbench.filters.threedvar import make_3dvar
 from assimbench.models import make_lorenz63, make_lorenz96
 
 
@@ -24,8 +31,72 @@ MODELS = {"lorenz63": _lorenz63, "lorenz96": _lorenz96}
 STATE_SIZE = {"lorenz63": lambda node: 3, "lorenz96": lambda node: int(node.size)}
 
 
+def _inflation(node):
+    """Traced strengths and the static set of pieces switched on for this job."""
+    values = {key: float(node[key]) for key in ("inflation", "additive_std", "rtpp", "rtps")}
+    pieces = frozenset(
+        piece for piece, key in (("additive", "additive_std"), ("rtpp", "rtpp"), ("rtps", "rtps")) if values[key] != 0.0
+    )
+    return values, pieces
+
+
+def _radius(node):
+    return None if node.radius is None else float(node.radius)
+
+
 def _etkf(node, model, operator):
-    return make_etkf(operator, members=int(node.members)), {"inflation": float(node.inflation)}
+    values, pieces = _inflation(node)
+    return make_etkf(operator, int(node.members), pieces), values
 
 
-FILTERS = {"etkf": _etkf}
+def _enkf(node, model, operator):
+    values, pieces = _inflation(node)
+    return make_enkf(operator, int(node.members), bool(node.centre_perturbations), pieces), values
+
+
+def _letkf(node, model, operator):
+    values, pieces = _inflation(node)
+    radius = _radius(node)
+    filt = make_letkf(model, operator, int(node.members), radius, pieces)
+    return filt, {**values, "radius": radius if radius is not None else 0.0}
+
+
+def _ensrf(node, model, operator):
+    values, pieces = _inflation(node)
+    radius = _radius(node)
+    filt = make_ensrf(model, operator, int(node.members), radius, pieces)
+    return filt, {**values, "radius": radius if radius is not None else 0.0}
+
+
+def _3dvar(node, model, operator):
+    _, covariance = climatology(model)
+    return make_3dvar(operator, covariance, int(node.iterations)), {"b_scale": float(node.b_scale)}
+
+
+def _sir(node, model, operator):
+    settings = {"ess_threshold": float(node.ess_threshold), "jitter": float(node.jitter)}
+    return make_sir(operator, int(node.members)), settings
+
+
+def _free(node, model, operator):
+    return make_free_run(int(node.members)), {}
+
+
+def _climatology(node, model, operator):
+    mean, _ = climatology(model)
+    return make_climatology(mean), {}
+
+
+FILTERS = {
+    "etkf": _etkf,
+    "enkf": _enkf,
+    "letkf": _letkf,
+    "ensrf": _ensrf,
+    "3dvar": _3dvar,
+    "sir": _sir,
+    "free": _free,
+    "climatology": _climatology,
+}
+
+# Filters whose radius needs a distance between grid points and observations.
+LOCALIZED = ("letkf", "ensrf")

@@ -40,22 +40,108 @@ class Lorenz96Config:
 class ObservationConfig:
     """Observe every ``stride``-th variable every ``interval`` model time units.
 
-    y = h(truth) + N(0, error_std^2 I); ``interval`` must be a whole multiple
-    of ``model.dt``.
+    y = f(H truth) + N(0, error_std^2 I) with f given by ``transform``
+    (identity, absolute or square); ``interval`` must be a whole multiple of
+    ``model.dt``.
     """
 
     interval: float = 0.05
     stride: int = 1
     error_std: float = 1.0
+    transform: str = "identity"
 
 
 @dataclass
-class ETKFConfig:
-    """ETKF (Hunt et al. 2007); ``inflation`` multiplies the prior anomalies."""
+class InflationConfig:
+    """Inflation pieces shared by every ensemble filter (see filters/inflation.py).
 
-    name: str = "etkf"
+    inflation multiplies the prior anomalies; additive_std is the standard
+    deviation of centred additive noise (state units); rtpp and rtps are the
+    relaxation coefficients to prior perturbations and to prior spread.
+    """
+
     members: int = 20
     inflation: float = 1.0
+    additive_std: float = 0.0
+    rtpp: float = 0.0
+    rtps: float = 0.0
+
+
+@dataclass
+class ETKFConfig(InflationConfig):
+    """ETKF (Hunt et al. 2007)."""
+
+    name: str = "etkf"
+
+
+@dataclass
+class EnKFConfig(InflationConfig):
+    """Perturbed-observation EnKF; centre_perturbations removes their ensemble mean."""
+
+    name: str = "enkf"
+    centre_perturbations: bool = True
+
+
+@dataclass
+class LETKFConfig(InflationConfig):
+    """LETKF; radius is the Gaspari-Cohn half-width c in grid units (null: no localization)."""
+
+    name: str = "letkf"
+    radius: Optional[float] = 4.0
+
+
+@dataclass
+class EnSRFConfig(InflationConfig):
+    """Serial EnSRF; radius as for the LETKF (null: no localization)."""
+
+    name: str = "ensrf"
+    radius: Optional[float] = 4.0
+
+
+@dataclass
+class ThreeDVarConfig:
+    """3D-Var; B = b_scale x climatological covariance; iterations of Gauss-Newton for nonlinear h."""
+
+    name: str = "3dvar"
+    b_scale: float = 0.1
+    iterations: int = 3
+
+
+@dataclass
+class SIRConfig:
+    """SIR particle filter: resample when ESS < ess_threshold x members; jitter in state units."""
+
+    name: str = "sir"
+    members: int = 1000
+    ess_threshold: float = 0.5
+    jitter: float = 0.1
+
+
+@dataclass
+class FreeRunConfig:
+    """Reference: the ensemble forecast with no analysis."""
+
+    name: str = "free"
+    members: int = 20
+
+
+@dataclass
+class ClimatologyConfig:
+    """Reference: the climatological mean as forecast and analysis."""
+
+    name: str = "climatology"
+
+
+FILTER_SCHEMAS = {
+    "etkf": ETKFConfig,
+    "enkf": EnKFConfig,
+    "letkf": LETKFConfig,
+    "ensrf": EnSRFConfig,
+    "3dvar": ThreeDVarConfig,
+    "sir": SIRConfig,
+    "free": FreeRunConfig,
+    "climatology": ClimatologyConfig,
+}
 
 
 @dataclass
@@ -89,4 +175,5 @@ def register_schemas() -> None:
     store.store(group="model", name=SCHEMA_PREFIX + "lorenz63", node=Lorenz63Config)
     store.store(group="model", name=SCHEMA_PREFIX + "lorenz96", node=Lorenz96Config)
     store.store(group="observation", name=SCHEMA_PREFIX + "observation", node=ObservationConfig)
-    store.store(group="filter", name=SCHEMA_PREFIX + "etkf", node=ETKFConfig)
+    for name, schema in FILTER_SCHEMAS.items():
+        store.store(group="filter", name=SCHEMA_PREFIX + name, node=schema)

@@ -48,6 +48,49 @@ def steps_per_cycle(interval: float, dt: float) -> int:
     return 0
 
 
+def _in_range(cfg, key, low, high, allowed):
+    value = _real(cfg, key, allowed)
+    if not low <= value <= high:
+        _fail(key, value, allowed)
+
+
+def _check_filter(cfg, model_name: str) -> None:
+    """Ranges of the filter keys present in this filter's schema, and the radius rule."""
+    from assimbench.registry import LOCALIZED, MODELS
+
+    node = cfg.filter
+    keys = set(node.keys())
+    if "members" in keys:
+        _integer(cfg, "filter.members", 2, "an integer >= 2")
+    if "inflation" in keys:
+        _real(cfg, "filter.inflation", "a finite factor >= 1 (1 = no inflation)", minimum=1.0, strict=False)
+    if "additive_std" in keys:
+        _real(cfg, "filter.additive_std", "a finite standard deviation >= 0 (0 = off)", minimum=0.0, strict=False)
+    if "rtpp" in keys:
+        _in_range(cfg, "filter.rtpp", 0.0, 1.0, "a coefficient from 0 (off) to 1")
+    if "rtps" in keys:
+        _in_range(cfg, "filter.rtps", 0.0, 2.0, "a coefficient from 0 (off) to 2")
+    if "radius" in keys and node.radius is not None:
+        _real(cfg, "filter.radius", "a finite half-width > 0 in grid units, or null for no localization", minimum=0.0)
+        ring = MODELS[model_name](cfg.model).ring
+        if node.name in LOCALIZED and not ring:
+            _fail(
+                "filter.radius",
+                node.radius,
+                f"null: {model_name} has no distance between variables (use filter.radius=null)",
+            )
+    if "b_scale" in keys:
+        _real(cfg, "filter.b_scale", "a finite factor > 0", minimum=0.0)
+    if "iterations" in keys:
+        _integer(cfg, "filter.iterations", 1, "an integer >= 1")
+    if "ess_threshold" in keys:
+        value = _real(cfg, "filter.ess_threshold", "a fraction in (0, 1]")
+        if not 0.0 < value <= 1.0:
+            _fail("filter.ess_threshold", value, "a fraction in (0, 1]")
+    if "jitter" in keys:
+        _real(cfg, "filter.jitter", "a finite standard deviation >= 0", minimum=0.0, strict=False)
+
+
 def check_config(cfg: DictConfig, model_names, filter_names) -> None:
     """Raise ConfigError for the first value or combination that is not allowed."""
     from assimbench.registry import STATE_SIZE
@@ -76,8 +119,12 @@ def check_config(cfg: DictConfig, model_names, filter_names) -> None:
         _fail("observation.stride", cfg.observation.stride, f"an integer from 1 to the state size {size}")
     _real(cfg, "observation.error_std", "a finite standard deviation > 0", minimum=0.0)
 
-    _integer(cfg, "filter.members", 2, "an integer >= 2")
-    _real(cfg, "filter.inflation", "a finite factor >= 1 (1 = no inflation)", minimum=1.0, strict=False)
+    from assimbench.observations import TRANSFORMS
+
+    transform = cfg.observation.transform
+    if transform not in TRANSFORMS:
+        _fail("observation.transform", transform, "one of " + ", ".join(TRANSFORMS))
+    _check_filter(cfg, model_name)
 
     cycles = _integer(cfg, "cycles", 1, "an integer >= 1")
     burn_in = _integer(cfg, "burn_in", 0, f"an integer from 0 to cycles - 1 = {cycles - 1}")

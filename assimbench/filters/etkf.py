@@ -7,8 +7,7 @@ global version of their algorithm). Members are rows: X_b is (N, n).
 import jax
 import jax.numpy as jnp
 
-from assimbench.filters import EnsembleState, Filter, keep_ensemble
-from assimbench.filters.inflation import inflate_anomalies
+from assimbench.filters import Filter, ensemble_filter
 
 
 def etkf_analysis(members: jax.Array, obs_members: jax.Array, y: jax.Array, error_var) -> jax.Array:
@@ -39,14 +38,12 @@ def etkf_analysis(members: jax.Array, obs_members: jax.Array, y: jax.Array, erro
     return mean + (weights_mean[None, :] + transform) @ anomalies
 
 
-def make_etkf(operator, members: int) -> Filter:
-    """ETKF with multiplicative prior inflation ``settings["filter"]["inflation"]``."""
+def make_etkf(operator, members: int, pieces=frozenset()) -> Filter:
+    """ETKF with the inflation pieces of :mod:`assimbench.filters.inflation`."""
 
-    def analyse(key, state, y, settings):
+    def update(key, prior, y, settings):
         del key  # deterministic square-root filter
-        prior = inflate_anomalies(state.members, settings["filter"]["inflation"])
         error_var = settings["observation"]["error_std"] ** 2
-        posterior = etkf_analysis(prior, operator(prior), y, error_var)
-        return EnsembleState(members=posterior), {}
+        return etkf_analysis(prior, operator(prior), y, error_var), {}
 
-    return Filter(name="etkf", members=members, init=keep_ensemble, analyse=analyse)
+    return ensemble_filter("etkf", members, update, pieces)
