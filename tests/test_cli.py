@@ -24,7 +24,7 @@ def _run(args, cwd):
 # (override, words the one-line message must contain)
 BAD_INPUT = [
     (["model=lorenz99"], ["model=lorenz99", "lorenz63, lorenz96"]),
-    (["filter=kalman"], ["filter=kalman", "etkf"]),
+    (["filter=kalman"], ["filter=kalman", "3dvar, climatology, enkf, ensrf, etkf, free, letkf, sir"]),
     (["observation=nowhere"], ["observation=nowhere", "every_station"]),
     (["cycles=abc"], ["cycles", "Integer"]),
     (["filter.members=ten"], ["filter.members", "Integer"]),
@@ -51,6 +51,19 @@ BAD_INPUT = [
     (["filter.members=10,20"], ["filter.members=10,20", "--multirun"]),
     (["cycles=["], ["cycles=[", "key=value"]),
     (["-m", "filter.members=10,1"], ["filter.members=1", ">= 2"]),
+    (["filter=letkf", "filter.radius=0"], ["filter.radius", "> 0"]),
+    (["filter=ensrf", "filter.radius=-2"], ["filter.radius", "> 0"]),
+    (["model=lorenz63", "filter=letkf"], ["filter.radius", "null", "lorenz63"]),
+    (["filter=sir", "filter.jitter=-0.1"], ["filter.jitter", ">= 0"]),
+    (["filter=sir", "filter.ess_threshold=0"], ["filter.ess_threshold", "(0, 1]"]),
+    (["filter=sir", "filter.ess_threshold=1.5"], ["filter.ess_threshold", "(0, 1]"]),
+    (["filter=3dvar", "filter.b_scale=0"], ["filter.b_scale", "> 0"]),
+    (["filter=3dvar", "filter.iterations=0"], ["filter.iterations", ">= 1"]),
+    (["filter.rtpp=1.5"], ["filter.rtpp", "0 (off) to 1"]),
+    (["filter.rtps=-1"], ["filter.rtps", "0 (off) to 2"]),
+    (["filter.additive_std=-0.1"], ["filter.additive_std", ">= 0"]),
+    (["observation.transform=cube"], ["observation.transform", "identity, absolute, square"]),
+    (["filter=3dvar", "filter.members=5"], ["filter.members", "not a key"]),
 ]
 
 

@@ -12,6 +12,7 @@ from typing import NamedTuple
 
 import jax
 import jax.numpy as jnp
+import numpy as np
 from jax.scipy.special import logsumexp
 
 from assimbench.filters import Filter
@@ -46,7 +47,8 @@ def make_sir(operator, members: int) -> Filter:
 
     def init(key, initial_ensemble, settings):
         del key, settings
-        return ParticleState(initial_ensemble, jnp.full(members, -jnp.log(members)))
+        # An explicit dtype: a weakly typed carry would make the second chunk recompile.
+        return ParticleState(initial_ensemble, jnp.full(members, -np.log(members), dtype=jnp.float64))
 
     def analyse(key, state, y, settings):
         error_var = settings["observation"]["error_std"] ** 2
@@ -59,7 +61,7 @@ def make_sir(operator, members: int) -> Filter:
         noise = settings["filter"]["jitter"] * jax.random.normal(jitter_key, state.members.shape)
         resample = ess < settings["filter"]["ess_threshold"] * members
         particles = jnp.where(resample, state.members[chosen] + noise, state.members)
-        log_weights = jnp.where(resample, jnp.full(members, -jnp.log(members)), log_weights)
+        log_weights = jnp.where(resample, jnp.full(members, -np.log(members), dtype=jnp.float64), log_weights)
         return ParticleState(particles, log_weights), {"ess": ess, "resampled": resample}
 
     return Filter(name="sir", members=members, init=init, analyse=analyse)

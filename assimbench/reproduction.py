@@ -1,0 +1,76 @@
+"""Reproduction cards: a published benchmark set-up, its expected band and its source.
+
+A card is a YAML file (see ``experiments/published/``) with keys
+``title``, ``source``, ``overrides`` (a list), ``metric`` (a summary name),
+``full`` and ``short`` (each ``cycles``, ``burn_in``, ``replicates``,
+``band: [low, high]``), and optionally ``better_than`` / ``worse_than``
+naming another card whose measured metric this one must beat / trail.
+"""
+
+import os
+from dataclasses import dataclass
+
+import yaml
+
+from assimbench.api import run
+
+
+@dataclass
+class Card:
+    name: str
+    title: str
+    source: str
+    overrides: list
+    metric: str
+    lengths: dict
+    better_than: str | None = None
+    worse_than: str | None = None
+
+
+def load_cards(folder: str) -> dict:
+    """All cards of a folder by name (file name without .yaml), in name order."""
+    cards = {}
+    for file in sorted(os.listdir(folder)):
+        if file.endswith(".yaml"):
+            with open(os.path.join(folder, file)) as handle:
+                raw = yaml.safe_load(handle)
+            name = file[:-5]
+            cards[name] = Card(
+                name=name,
+                title=raw["title"],
+                source=raw["source"],
+                overrides=list(raw["overrides"]),
+                metric=raw["metric"],
+                lengths={"full": raw["full"], "short": raw["short"]},
+                better_than=raw.get("better_than"),
+                worse_than=raw.get("worse_than"),
+            )
+    return cards
+
+
+def measure(card: Card, length: str = "short") -> float:
+    """Run a card at the given length and return its metric (time mean over replicates)."""
+    spec = card.lengths[length]
+    overrides = card.overrides + [
+        f"cycles={spec['cycles']}",
+        f"burn_in={spec['burn_in']}",
+        f"replicates={spec['replicates']}",
+    ]
+    return run(overrides).summary[card.metric]
+
+
+def verdicts(cards: dict, measured: dict, length: str = "short") -> dict:
+    """name -> (passed, reason) for every measured card."""
+    out = {}
+    for name, value in measured.items():
+        card = cards[name]
+        low, high = card.lengths[length]["band"]
+        ok, reason = low <= value <= high, f"band [{low}, {high}]"
+        if card.better_than and card.better_than in measured:
+            ok = ok and value < measured[card.better_than]
+            reason += f", below {card.better_than}"
+        if card.worse_than and card.worse_than in measured:
+            ok = ok and value > measured[card.worse_than]
+            reason += f", above {card.worse_than}"
+        out[name] = (ok, reason)
+    return out

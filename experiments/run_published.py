@@ -1,0 +1,34 @@
+"""Run every reproduction card of experiments/published/ and print measured vs expected.
+
+    python experiments/run_published.py            # full lengths (about 10 minutes on 2 cores)
+    python experiments/run_published.py --short    # the short forms CI runs
+
+Exit status 1 when any card misses its band.
+"""
+
+import argparse
+import os
+import sys
+
+from assimbench.reproduction import load_cards, measure, verdicts
+
+FOLDER = os.path.join(os.path.dirname(os.path.abspath(__file__)), "published")
+
+
+def main() -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--short", action="store_true", help="run the short forms")
+    args = parser.parse_args()
+    length = "short" if args.short else "full"
+    cards = load_cards(FOLDER)
+    measured = {name: measure(card, length) for name, card in cards.items()}
+    results = verdicts(cards, measured, length)
+    print(f"{'card':<18}{'measured':>10}  {'expected':<40}{'verdict':<8}source")
+    for name, card in cards.items():
+        ok, reason = results[name]
+        print(f"{name:<18}{measured[name]:>10.3f}  {reason:<40}{'ok' if ok else 'MISS':<8}{card.source}")
+    return 0 if all(ok for ok, _ in results.values()) else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

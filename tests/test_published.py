@@ -1,0 +1,32 @@
+"""Published benchmark set-ups (experiments/published/*.yaml) reproduced within their bands.
+
+Each card names its source (paper, or "from memory") and its band. CI runs the short form of
+every card; ASSIMBENCH_LONG=1 runs the full lengths.
+"""
+
+import os
+
+import pytest
+
+from assimbench.reproduction import load_cards, measure, verdicts
+
+FOLDER = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "experiments", "published")
+CARDS = load_cards(FOLDER)
+
+
+@pytest.fixture(scope="module")
+def measured(long_run):
+    length = "full" if long_run else "short"
+    return length, {name: measure(card, length) for name, card in CARDS.items()}
+
+
+@pytest.mark.long
+@pytest.mark.parametrize("name", list(CARDS))
+def test_published_card_is_reproduced(name, measured):
+    length, values = measured
+    ok, reason = verdicts(CARDS, values, length)[name]
+    assert ok, f"{name}: measured {values[name]:.3f}, expected {reason} ({CARDS[name].source})"
+
+
+def test_there_is_a_card_for_every_benchmark_the_filters_promise():
+    assert {"l96_etkf_20", "l96_etkf_40", "l96_letkf_10", "l63_etkf_10", "l63_sir_1000"} <= set(CARDS)
