@@ -15,6 +15,6 @@ import pytest  # noqa: E402
 LONG = os.environ.get("ASSIMBENCH_LONG", "") == "1"
 
 
-@pytest.fixture
+@pytest.fixture(scope="session")
 def long_run():
     return LONG

@@ -73,7 +73,7 @@ def test_the_filter_pair_applies_inflation_before_the_analysis():
     operator = every_kth(6, 2)
     filt = make_etkf(operator, members=8)
     settings = {"filter": {"inflation": jnp.asarray(1.2)}, "observation": {"error_std": jnp.asarray(0.7)}}
-    state, _ = filt.analyse(None, EnsembleState(members), y, settings)
+    state, _ = filt.analyse(jax.random.PRNGKey(0), EnsembleState(members), y, settings)
     prior = inflate_anomalies(members, 1.2)
     expected = etkf_analysis(prior, prior[:, ::2], y, 0.49)
     np.testing.assert_allclose(np.asarray(state.members), np.asarray(expected), rtol=0, atol=1e-13)
