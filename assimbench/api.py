@@ -8,7 +8,6 @@ The command line is a thin layer over :func:`run_experiment`.
 """
 
 import datetime
-import math
 import platform
 import time
 from dataclasses import dataclass, field
@@ -22,10 +21,12 @@ from omegaconf import DictConfig, OmegaConf
 
 from assimbench.composition import compose_config, validate_config
 from assimbench.cycling import TwinSetup, make_chunk, make_start, replicate_keys
-from assimbench.diagnostics import CYCLE_SERIES
+from assimbench.climatology import climatology
+from assimbench.diagnostics import available_groups, series_catalogue
 from assimbench.observations import every_kth
 from assimbench.registry import FILTERS, MODELS
-from assimbench.results import ResultWriter
+from assimbench.results import Layout, ResultWriter
+from assimbench.summaries import TimeMeans, update_lost_runs
 from assimbench.validation import steps_per_cycle
 
 LIBRARIES = ("jax", "jaxlib", "numpy", "scipy", "h5py", "hydra-core", "omegaconf")
@@ -35,23 +36,29 @@ LIBRARIES = ("jax", "jaxlib", "numpy", "scipy", "h5py", "hydra-core", "omegaconf
 class RunResult:
     """What one run returns.
 
-    series: name -> (replicates, cycles) per-cycle diagnostics;
-    summary: name -> time mean after burn-in, averaged over replicates;
-    per_replicate: name -> (replicates,) time means after burn-in;
-    first_bad_cycle: (replicates,) first cycle with a non-finite value, -1 if none.
+    series: name -> (replicates, cycles[, k]) per-cycle diagnostics (empty when
+    the run was asked not to keep them); summary: name -> time mean after
+    burn-in over replicates, with name_low / name_high its 95% interval;
+    per_replicate: name -> (replicates,) time means (and name_halfwidth);
+    totals: rank-count name -> (replicates, N + 1) counts after burn-in;
+    first_bad_cycle: (replicates,) first diverged cycle, -1 if none.
     """
 
     config: DictConfig
     replicates: int
     interval: float
+    cycles: int
     series: dict
     summary: dict
     per_replicate: dict
+    totals: dict
     first_bad_cycle: np.ndarray
     compile_seconds: float
     run_seconds: float
     file_attrs: dict
-    series_info: dict = field(default_factory=lambda: dict(CYCLE_SERIES))
+    layouts: dict = field(default_factory=dict)
+    coordinates: dict = field(default_factory=dict)
+    finish_attrs: dict = field(default_factory=dict)
     path: Optional[str] = None
 
     @property
@@ -60,21 +67,36 @@ class RunResult:
 
     @property
     def microseconds_per_cycle(self) -> float:
-        """Wall time per cycle and replicate of the compiled chunks (compile excluded)."""
-        cycles = next(iter(self.series.values())).shape[1]
-        return 1e6 * self.run_seconds / cycles
+        """Wall time per cycle (all replicates together) of the compiled chunks, compile excluded."""
+        return 1e6 * self.run_seconds / self.cycles
 
 
 def build(cfg: DictConfig):
     """Turn a validated config into the static setup and the dynamic settings pytree."""
     model = MODELS[cfg.model.name](cfg.model)
-    operator = every_kth(model.size, int(cfg.observation.stride))
+    operator = every_kth(model.size, int(cfg.observation.stride), str(cfg.observation.transform))
     filt, filter_settings = FILTERS[cfg.filter.name](cfg.filter, model, operator)
+    available = available_groups(filt.members, filt.weighted)
+    groups = available if cfg.diagnostics is None else tuple(g for g in available if g in cfg.diagnostics)
+    store = cfg.store
+    fields = tuple(
+        name
+        for name, wanted in (
+            ("truth", store.truth),
+            ("observations", store.observations),
+            ("forecast_mean", store.forecast_mean),
+            ("analysis_mean", store.analysis_mean),
+            ("analysis_ensemble", store.ensemble_every > 0),
+        )
+        if wanted
+    )
     setup = TwinSetup(
         model=model,
         operator=operator,
         filter=filt,
         steps_per_cycle=steps_per_cycle(float(cfg.observation.interval), model.dt),
+        diagnostics=groups,
+        fields=fields,
     )
     settings = {
         "model": model.params,
@@ -85,13 +107,37 @@ def build(cfg: DictConfig):
     return setup, jax.tree.map(lambda v: jnp.asarray(v, dtype=jnp.float64), settings)
 
 
-def first_bad_cycles(series: dict) -> np.ndarray:
-    """(replicates,) first cycle (1-based) at which any series is non-finite; -1 if none."""
-    bad = np.zeros_like(next(iter(series.values())), dtype=bool)
-    for values in series.values():
-        bad |= ~np.isfinite(values)
-    first = np.argmax(bad, axis=1) + 1
-    return np.where(bad.any(axis=1), first, -1)
+def layouts_of(setup: TwinSetup) -> tuple:
+    """(layouts, coordinates) of every dataset this setup stores."""
+    members = setup.filter.members
+    layouts = {}
+    for name, series in series_catalogue(setup.diagnostics, members).items():
+        if series.extra_dim is None:
+            layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle"))
+        else:
+            layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle", series.extra_dim), np.int32)
+    field_layouts = {
+        "truth": Layout("true state", "state units", ("replicate", "cycle", "variable")),
+        "observations": Layout("observations y", "observation units", ("replicate", "cycle", "station")),
+        "forecast_mean": Layout("forecast ensemble mean", "state units", ("replicate", "cycle", "variable")),
+        "analysis_mean": Layout("analysis ensemble mean", "state units", ("replicate", "cycle", "variable")),
+        "analysis_ensemble": Layout("analysis ensemble", "state units", ("replicate", "snapshot", "member", "variable")),
+    }
+    layouts.update({name: field_layouts[name] for name in setup.fields})
+    coordinates = {
+        "variable": np.arange(setup.model.size),
+        "station": setup.operator.indices,
+        "member": np.arange(members),
+        "rank": np.arange(members + 1),
+    }
+    used = {d for layout in layouts.values() for d in layout.dims[2:]}
+    return layouts, {d: v for d, v in coordinates.items() if d in used}
+
+
+def climate_std(model) -> float:
+    """Climatological standard deviation of one variable (mean over variables), for the divergence rule."""
+    _, covariance = climatology(model, samples=4000)
+    return float(np.sqrt(np.mean(np.diag(covariance))))
 
 
 def provenance(cfg: DictConfig) -> dict:
@@ -121,19 +167,28 @@ def run_experiment(
     cfg: DictConfig,
     output: Optional[str] = None,
     progress: Optional[Callable[[int, int], None]] = None,
+    keep_series: bool = True,
 ) -> RunResult:
     """Validate ``cfg``, run the experiment, and write ``output`` (HDF5) if given.
 
     The cycles run in compiled chunks of ``cfg.chunk_cycles``; each chunk is
-    appended to the file as it completes. ``progress(done, total)`` is called
-    after every chunk.
+    appended to the file as it completes and folded into the time means, so
+    memory does not grow with the number of cycles when ``keep_series`` is
+    False. ``progress(done, total)`` is called after every chunk.
     """
     validate_config(cfg)
     setup, settings = build(cfg)
-    cycles, replicates = int(cfg.cycles), int(cfg.replicates)
+    cycles, replicates, burn_in = int(cfg.cycles), int(cfg.replicates), int(cfg.burn_in)
     length = min(int(cfg.chunk_cycles), cycles)
     keys = replicate_keys(int(cfg.seed), replicates)
     attrs = provenance(cfg)
+    layouts, coordinates = layouts_of(setup)
+    scalar_names = [n for n, lay in layouts.items() if lay.dims == ("replicate", "cycle")]
+    count_names = [n for n, lay in layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "rank"]
+    diagnostic_names = scalar_names + count_names
+    analyses = cfg.filter.name not in ("free", "climatology")
+    threshold = float(cfg.divergence_factor) * climate_std(setup.model) if analyses else np.inf
+    every = int(cfg.store.ensemble_every)
 
     tic = time.perf_counter()
     start = make_start(setup).lower(keys, settings).compile()
@@ -144,48 +199,83 @@ def run_experiment(
 
     writer = None
     if output is not None:
-        writer = ResultWriter(output, replicates, float(cfg.observation.interval), CYCLE_SERIES, attrs)
-    pieces = {name: [] for name in CYCLE_SERIES}
+        writer = ResultWriter(output, replicates, float(cfg.observation.interval), layouts, coordinates, attrs)
+    means = TimeMeans(replicates, cycles, burn_in)
+    kept = {name: [] for name in diagnostic_names} if keep_series else None
+    first_bad = np.full(replicates, -1, dtype=np.int64)
+    open_runs = np.zeros(replicates, dtype=np.int64)
+    patience = int(cfg.divergence_patience)
     run_seconds = 0.0
     try:
         for first_cycle in range(1, cycles + 1, length):
             tic = time.perf_counter()
-            carry, series = chunk(carry, keys, jnp.asarray(first_cycle, dtype=jnp.int64), settings)
-            series = jax.device_get(series)
+            carry, out = chunk(carry, keys, jnp.asarray(first_cycle, dtype=jnp.int64), settings)
+            out = jax.device_get(out)
             run_seconds += time.perf_counter() - tic
             keep = min(length, cycles - first_cycle + 1)  # the last chunk may run past the end
-            series = {name: np.asarray(series[name][:, :keep]) for name in CYCLE_SERIES}
+            out = {name: np.asarray(values[:, :keep]) for name, values in out.items()}
+            chunk_cycles = first_cycle + np.arange(keep)
+            snapshots = chunk_cycles[chunk_cycles % every == 0] if every else np.array([], dtype=np.int64)
+            if "analysis_ensemble" in out:
+                out["analysis_ensemble"] = out["analysis_ensemble"][:, snapshots - first_cycle]
+            # Diverged: any non-finite value, or a lost filter (analysis RMSE above the
+            # threshold for `patience` consecutive cycles; a brief excursion is a result).
+            broken = np.zeros((replicates, keep), dtype=bool)
+            for name in scalar_names:
+                broken |= ~np.isfinite(out[name])
+            newly = (first_bad < 0) & broken.any(axis=1)
+            first_bad[newly] = first_cycle + np.argmax(broken[newly], axis=1)
+            hit, start_of_run, open_runs = update_lost_runs(out["rmse_analysis"] > threshold, open_runs, patience)
+            newly = (first_bad < 0) & (hit >= 0)
+            first_bad[newly] = first_cycle + start_of_run[newly]
+            for name in diagnostic_names:
+                means.add(name, out[name], first_cycle)
+                if kept is not None:
+                    kept[name].append(out[name])
             if writer is not None:
-                writer.append(series)
-            for name in CYCLE_SERIES:
-                pieces[name].append(series[name])
+                writer.append(out, snapshots)
             if progress is not None:
                 progress(first_cycle + keep - 1, cycles)
-        full = {name: np.concatenate(parts, axis=1) for name, parts in pieces.items()}
-        first_bad = first_bad_cycles(full)
-        burn_in = int(cfg.burn_in)
-        per_replicate = {name: values[:, burn_in:].mean(axis=1) for name, values in full.items()}
-        summary = {name: float(values.mean()) for name, values in per_replicate.items()}
+        summary, per_replicate = {}, {}
+        for name in scalar_names:
+            stats_ = means.summarise(name)
+            summary[name] = stats_["mean"]
+            summary[name + "_low"] = stats_["low"]
+            summary[name + "_high"] = stats_["high"]
+            per_replicate[name] = stats_["per_replicate"]
+            per_replicate[name + "_halfwidth"] = stats_["per_replicate_halfwidth"]
+        for when in ("forecast", "analysis"):
+            summary[f"spread_skill_ratio_{when}"] = summary[f"spread_{when}"] / summary[f"rmse_{when}"]
+        totals = {name: means.totals(name) for name in count_names}
+        finish_attrs = {
+            "diverged": bool(np.any(first_bad >= 0)),
+            "burn_in": burn_in,
+            "divergence_threshold": threshold,
+            "divergence_patience": patience,
+            "interval_method": "batch means, 20 batches after burn-in, Student t 95%",
+            "compile_seconds": compile_seconds,
+            "run_seconds": run_seconds,
+        }
+        series = {name: np.concatenate(parts, axis=1) for name, parts in kept.items()} if kept is not None else {}
         result = RunResult(
             config=cfg,
             replicates=replicates,
             interval=float(cfg.observation.interval),
-            series=full,
+            cycles=cycles,
+            series=series,
             summary=summary,
             per_replicate=per_replicate,
+            totals=totals,
             first_bad_cycle=first_bad,
             compile_seconds=compile_seconds,
             run_seconds=run_seconds,
             file_attrs=attrs,
+            layouts=layouts,
+            coordinates=coordinates,
+            finish_attrs=finish_attrs,
         )
         if writer is not None:
-            finish_attrs = {
-                "diverged": result.diverged,
-                "burn_in": burn_in,
-                "compile_seconds": compile_seconds,
-                "run_seconds": run_seconds,
-            }
-            result.path = writer.finish(summary, per_replicate, first_bad, finish_attrs)
+            result.path = writer.finish(summary, per_replicate, totals, first_bad, finish_attrs)
     except BaseException:
         if writer is not None:
             writer.close_incomplete()
@@ -196,7 +286,3 @@ def run_experiment(
 def run(overrides=(), output: Optional[str] = None) -> RunResult:
     """Compose the config from ``overrides`` and run it; see :func:`run_experiment`."""
     return run_experiment(compose_config(overrides), output=output)
-
-
-def is_finite_summary(summary: dict) -> bool:
-    return all(math.isfinite(v) for v in summary.values())

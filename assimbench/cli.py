@@ -64,27 +64,38 @@ def preflight(argv: list[str]) -> None:
         compose_config(job)
 
 
+def _cell(summary, name):
+    if name not in summary:
+        return f"{'-':>22}"
+    mean, low, high = summary[name], summary.get(name + "_low"), summary.get(name + "_high")
+    if low is None or not (low == low):  # no interval (nan)
+        return f"{mean:>22.4f}"
+    return f"{mean:.4f} +- {(high - low) / 2:.4f}".rjust(22)
+
+
 def format_summary(result, path) -> str:
-    """The short table printed at the end of a run."""
+    """The short table printed at the end of a run: time means after burn-in with 95% intervals."""
     cfg = result.config
     model = cfg.model
     size = model.size if model.name == "lorenz96" else 3
     reps = result.replicates
+    members = f", {cfg.filter.members} members" if "members" in cfg.filter else ""
     head = (
-        f"assimbench  {model.name} (n={size})  {cfg.filter.name}, {cfg.filter.members} members  "
+        f"assimbench  {model.name} (n={size})  {cfg.filter.name}{members}  "
         f"{reps} replicate{'s' if reps > 1 else ''} x {cfg.cycles} cycles (burn-in {cfg.burn_in})"
     )
     s = result.summary
-    lines = [
-        head,
-        f"  {'time mean':<12}{'forecast':>10}{'analysis':>10}",
-        f"  {'RMSE':<12}{s['rmse_forecast']:>10.4f}{s['rmse_analysis']:>10.4f}",
-        f"  {'spread':<12}{s['spread_forecast']:>10.4f}{s['spread_analysis']:>10.4f}",
-    ]
+    lines = [head, f"  {'time mean (95%)':<20}{'forecast':>22}{'analysis':>22}"]
+    for label, stem in (("RMSE", "rmse"), ("spread", "spread"), ("spread / RMSE", "spread_skill"),
+                        ("CRPS", "crps"), ("CRPS (fair)", "crps_fair")):
+        if f"{stem}_analysis" in s:
+            lines.append(f"  {label:<20}{_cell(s, stem + '_forecast')}{_cell(s, stem + '_analysis')}")
+    for label, name in (("innovation ratio", "innovation_ratio"), ("Desroziers R", "desroziers_r"),
+                        ("Desroziers HBH^T", "desroziers_hbht"), ("ESS", "ess")):
+        if name in s:
+            lines.append(f"  {label:<20}{_cell(s, name)}")
     if result.diverged:
-        where = ", ".join(
-            f"replicate {r} at cycle {c}" for r, c in enumerate(result.first_bad_cycle) if c >= 0
-        )
+        where = ", ".join(f"replicate {r} at cycle {c}" for r, c in enumerate(result.first_bad_cycle) if c >= 0)
         lines.append(f"  DIVERGED: {where}")
     lines.append(
         f"  compile {result.compile_seconds:.1f} s, cycling {result.run_seconds:.2f} s "
@@ -95,15 +106,37 @@ def format_summary(result, path) -> str:
     return "\n".join(lines)
 
 
+class _ChunkProgress:
+    """A progress bar per chunk on a terminal (tqdm on stderr); silent otherwise."""
+
+    def __init__(self, total: int):
+        self._bar = None
+        if sys.stderr.isatty():
+            from tqdm import tqdm
+
+            self._bar = tqdm(total=total, unit="cycle", desc="assimbench", leave=False, file=sys.stderr)
+
+    def __call__(self, done: int, total: int) -> None:
+        if self._bar is not None:
+            self._bar.update(done - self._bar.n)
+
+    def close(self) -> None:
+        if self._bar is not None:
+            self._bar.close()
+
+
 @hydra.main(config_path=config_dir(), config_name="config", version_base="1.3")
 def _hydra_app(cfg: DictConfig) -> None:
     output = cfg.output
     if output is not None and not os.path.isabs(output):
         output = os.path.join(HydraConfig.get().runtime.output_dir, output)
+    progress = _ChunkProgress(int(cfg.cycles))
     try:
-        result = run_experiment(cfg, output=output)
+        result = run_experiment(cfg, output=output, progress=progress, keep_series=False)
     except ConfigError as err:
         sys.exit(_fail(str(err)))
+    finally:
+        progress.close()
     print(format_summary(result, result.path), flush=True)
 
 

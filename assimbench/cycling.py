@@ -13,6 +13,7 @@ never by the chunk, so results do not depend on the chunk length:
     observations   fold_in(fold_in(r, 1), k)   noise of y_k
     ensemble       fold_in(r, 2)   initial ensemble
     filter         fold_in(fold_in(r, 3), k)   filter randomness at cycle k (0 for init)
+    diagnostics    fold_in(fold_in(r, 4), k)   noise of the observation rank histogram
 
 Truth and observations depend on (seed, replicate, model, observation
 settings) alone, so every filter and every setting run on a seed sees the same
@@ -27,7 +28,7 @@ from typing import NamedTuple
 import jax
 import jax.numpy as jnp
 
-from assimbench.diagnostics import cycle_diagnostics
+from assimbench.diagnostics import ensemble_mean_and_spread, make_cycle_diagnostics
 from assimbench.filters import Filter
 from assimbench.integrators import make_flow
 from assimbench.models import Model
@@ -35,12 +36,22 @@ from assimbench.observations import ObservationOperator
 
 
 class TwinSetup(NamedTuple):
-    """The static parts of an experiment (they fix shapes and code paths)."""
+    """The static parts of an experiment (they fix shapes and code paths).
+
+    diagnostics: optional diagnostic groups (see diagnostics.OPTIONAL);
+    fields: optional stored fields, a subset of FIELDS.
+    """
 
     model: Model
     operator: ObservationOperator
     filter: Filter
     steps_per_cycle: int
+    diagnostics: tuple = ()
+    fields: tuple = ()
+
+
+# Optional per-cycle fields a run can store besides the diagnostics.
+FIELDS = ("truth", "observations", "forecast_mean", "analysis_mean", "analysis_ensemble")
 
 
 class CycleCarry(NamedTuple):
@@ -109,19 +120,34 @@ def make_chunk(setup: TwinSetup, length: int):
     flow = make_flow(model.tendency, model.dt, setup.steps_per_cycle)
     forecast_members = jax.vmap(flow, in_axes=(0, None))
 
+    diagnose = make_cycle_diagnostics(setup.diagnostics, setup.operator, filt.weighted)
+    fields = setup.fields
+
     def chunk_one(carry, rkey, first_cycle, settings):
         filter_key = jax.random.fold_in(rkey, 3)
+        diagnostic_key = jax.random.fold_in(rkey, 4)
         truth_end, truths, observations = truth_chunk(carry.truth, rkey, first_cycle, settings)
 
         def cycle(state, inputs):
             k, truth, y = inputs
             if filt.runs_model:
                 state = state._replace(members=forecast_members(state.members, settings["model"]))
-            analysed, _info = filt.analyse(jax.random.fold_in(filter_key, k), state, y, settings)
-            return analysed, cycle_diagnostics(truth, state, analysed)
+            analysed, info = filt.analyse(jax.random.fold_in(filter_key, k), state, y, settings)
+            out = diagnose(jax.random.fold_in(diagnostic_key, k), truth, y, state, analysed, info, settings)
+            if "forecast_mean" in fields:
+                out["forecast_mean"] = ensemble_mean_and_spread(state)[0]
+            if "analysis_mean" in fields:
+                out["analysis_mean"] = ensemble_mean_and_spread(analysed)[0]
+            if "analysis_ensemble" in fields:
+                out["analysis_ensemble"] = analysed.members
+            return analysed, out
 
         cycles = first_cycle + jnp.arange(length)
         state_end, series = jax.lax.scan(cycle, carry.filter_state, (cycles, truths, observations))
+        if "truth" in fields:
+            series["truth"] = truths
+        if "observations" in fields:
+            series["observations"] = observations
         return CycleCarry(truth=truth_end, filter_state=state_end), series
 
     return jax.jit(jax.vmap(chunk_one, in_axes=(0, 0, None, None)))

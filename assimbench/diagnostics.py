@@ -1,26 +1,78 @@
-"""Per-cycle diagnostics: pure functions of (truth, ensemble) returning scalars.
+"""Per-cycle diagnostics: pure functions of (truth, observations, states) returning
+scalars or small vectors, evaluated inside the jitted cycle.
 
-RMSE is the root mean square over variables of (ensemble mean - truth).
-Spread is the square root of the mean over variables of the ensemble variance
-with the unbiased (N - 1) denominator, so that for a calibrated ensemble the
-time-mean spread and RMSE agree up to a factor sqrt((N + 1) / N) (common
-practice; e.g. Fortin et al. 2014, J. Hydrometeor. 15, eq. 9). For a weighted
-ensemble (particle filters) the mean and variance are weighted, the variance
-with the reliability-weight denominator 1 - sum(w^2) (which is N - 1 over N
-for equal weights). A single-state filter (3D-Var, climatology) reports
-spread 0: it makes no claim of uncertainty.
+Conventions (stated once for the whole package):
+- RMSE is the root mean square over variables of (ensemble mean - truth).
+- Spread is the square root of the mean over variables of the ensemble
+  variance with the unbiased (N - 1) denominator, so that for a calibrated
+  ensemble time-mean spread and RMSE agree up to sqrt((N + 1) / N) (common
+  practice; e.g. Fortin et al. 2014, J. Hydrometeor. 15, eq. 9). Weighted
+  ensembles (particle filters) use weighted moments with the reliability
+  denominator 1 - sum(w^2). A single-state filter reports spread 0.
+- "forecast" is the ensemble the model produced, before any inflation;
+  "analysis" is the filter's output.
+- Innovations use the forecast ensemble: d_ob = y - mean_i h(x_f,i),
+  d_oa = y - mean_i h(x_a,i), d_ab = d_ob - d_oa.
 """
+
+from typing import NamedTuple
 
 import jax
 import jax.numpy as jnp
 
-# Names of the per-cycle series every run stores, with their long names.
-CYCLE_SERIES = {
-    "rmse_forecast": "RMSE of the forecast ensemble mean against the truth",
-    "rmse_analysis": "RMSE of the analysis ensemble mean against the truth",
-    "spread_forecast": "spread (root mean ensemble variance) of the forecast ensemble",
-    "spread_analysis": "spread (root mean ensemble variance) of the analysis ensemble",
-}
+# Optional groups of series; the four RMSE/spread series are always stored.
+OPTIONAL = ("spread_skill", "crps", "rank_histogram", "innovation", "desroziers", "ess", "increment")
+
+
+class Series(NamedTuple):
+    """What the result file needs to know of one stored series."""
+
+    long_name: str
+    units: str
+    extra_dim: str | None = None  # e.g. "rank" for rank histograms
+
+
+def series_catalogue(groups, members: int) -> dict:
+    """name -> Series for the always-stored series and the chosen optional groups."""
+    out = {
+        "rmse_forecast": Series("RMSE of the forecast ensemble mean against the truth", "state units"),
+        "rmse_analysis": Series("RMSE of the analysis ensemble mean against the truth", "state units"),
+        "spread_forecast": Series("spread (root mean ensemble variance) of the forecast ensemble", "state units"),
+        "spread_analysis": Series("spread (root mean ensemble variance) of the analysis ensemble", "state units"),
+    }
+    if "spread_skill" in groups:
+        out["spread_skill_forecast"] = Series("forecast spread divided by forecast RMSE", "1")
+        out["spread_skill_analysis"] = Series("analysis spread divided by analysis RMSE", "1")
+    if "crps" in groups:
+        for when in ("forecast", "analysis"):
+            out[f"crps_{when}"] = Series(f"CRPS of the {when} ensemble against the truth, mean over variables (Hersbach 2000)", "state units")
+            out[f"crps_fair_{when}"] = Series(f"fair CRPS of the {when} ensemble against the truth, mean over variables", "state units")
+    if "rank_histogram" in groups:
+        out["rank_truth_forecast"] = Series("counts over variables of the truth's rank in the sorted forecast ensemble", "count", "rank")
+        out["rank_observation_forecast"] = Series(
+            "counts over stations of the observation's rank among forecast members plus observation noise", "count", "rank"
+        )
+    if "innovation" in groups:
+        out["innovation_mean"] = Series("mean over stations of y - h(forecast)", "observation units")
+        out["innovation_ratio"] = Series("mean squared innovation over mean (forecast variance in observation space + R)", "1")
+    if "desroziers" in groups:
+        out["desroziers_r"] = Series("mean over stations of d_oa d_ob (estimates R; Desroziers et al. 2005)", "observation units^2")
+        out["desroziers_hbht"] = Series("mean over stations of d_ab d_ob (estimates H B H^T; Desroziers et al. 2005)", "observation units^2")
+        out["desroziers_total"] = Series("mean over stations of d_ob d_ob (estimates H B H^T + R)", "observation units^2")
+    if "ess" in groups:
+        out["ess"] = Series("effective sample size 1 / sum(w^2) after the weight update", "members")
+    if "increment" in groups:
+        out["increment_norm"] = Series("root mean square over variables of the analysis increment of the mean", "state units")
+    return out
+
+
+def available_groups(members: int, weighted: bool) -> tuple:
+    """The optional groups a filter of this kind can give."""
+    if members == 1:
+        return ("desroziers", "increment")
+    groups = ["spread_skill", "crps", "innovation", "desroziers", "increment"]
+    groups += ["ess"] if weighted else ["rank_histogram"]
+    return tuple(g for g in OPTIONAL if g in groups)
 
 
 def rmse(estimate: jax.Array, truth: jax.Array) -> jax.Array:
@@ -35,25 +87,108 @@ def spread(members: jax.Array) -> jax.Array:
     return jnp.sqrt(jnp.mean(jnp.var(members, axis=0, ddof=1)))
 
 
+def normalised_weights(state) -> jax.Array:
+    """(N,) weights of a state: exp(log_weights) or 1/N."""
+    log_weights = getattr(state, "log_weights", None)
+    n = state.members.shape[0]
+    return jnp.full(n, 1.0 / n) if log_weights is None else jnp.exp(log_weights)
+
+
 def ensemble_mean_and_spread(state):
     """(mean (n,), spread scalar) of a filter state, weighted when it has ``log_weights``."""
     members = state.members
-    log_weights = getattr(state, "log_weights", None)
-    if log_weights is None:
+    if getattr(state, "log_weights", None) is None:
         return members.mean(axis=0), spread(members)
-    weights = jnp.exp(log_weights)
+    weights = normalised_weights(state)
     mean = weights @ members
     variance = (weights @ (members - mean) ** 2) / (1.0 - jnp.sum(weights**2))
     return mean, jnp.sqrt(jnp.mean(variance))
 
 
-def cycle_diagnostics(truth: jax.Array, forecast, analysis) -> dict:
-    """The stored scalars of one cycle; forecast and analysis are filter states, truth (n,)."""
-    mean_f, spread_f = ensemble_mean_and_spread(forecast)
-    mean_a, spread_a = ensemble_mean_and_spread(analysis)
-    return {
-        "rmse_forecast": rmse(mean_f, truth),
-        "rmse_analysis": rmse(mean_a, truth),
-        "spread_forecast": spread_f,
-        "spread_analysis": spread_a,
-    }
+# Up to this many members the pair term is summed directly (a fused elementwise
+# reduction); beyond it the sorted form avoids N^2 work (XLA's sort is slow on the CPU).
+PAIRWISE_LIMIT = 64
+
+
+def ensemble_crps(members: jax.Array, weights: jax.Array, truth: jax.Array):
+    """(CRPS, fair CRPS), each the mean over variables; members (N, n), weights (N,), truth (n,).
+
+    CRPS = sum_i w_i |x_i - y| - 1/2 sum_ij w_i w_j |x_i - x_j| (Hersbach 2000, Wea.
+    Forecasting 15; Gneiting & Raftery 2007, eq. 20), which with equal weights is
+    mean |x_i - y| - 1/(2 N^2) sum |x_i - x_j|. The fair variant divides the pair
+    term by 1 - sum(w^2) (with equal weights: 1/(2 N (N - 1)); Ferro 2014, QJRMS 140).
+    For large N the pair sum uses the sorted members: sum_ij w_i w_j |x_i - x_j| =
+    2 sum_i w_(i) x_(i) (2 C_i - w_(i) - 1), C the cumulative sorted weights.
+    """
+    absolute = weights @ jnp.abs(members - truth)  # (n,)
+    if members.shape[0] <= PAIRWISE_LIMIT:
+        gaps = jnp.abs(members[:, None, :] - members[None, :, :])  # (N, N, n)
+        pairs = jnp.sum((weights[:, None] * weights[None, :])[:, :, None] * gaps, axis=(0, 1))
+    else:
+        order = jnp.argsort(members, axis=0)
+        sorted_members = jnp.take_along_axis(members, order, axis=0)
+        sorted_weights = weights[order]  # (N, n)
+        cumulative = jnp.cumsum(sorted_weights, axis=0)
+        pairs = 2.0 * jnp.sum(sorted_weights * sorted_members * (2.0 * cumulative - sorted_weights - 1.0), axis=0)
+    crps = absolute - 0.5 * pairs
+    purity = 1.0 - jnp.sum(weights**2)
+    fair = absolute - 0.5 * pairs / jnp.where(purity > 0, purity, 1.0)
+    return jnp.mean(crps), jnp.mean(fair)
+
+
+def rank_counts(members: jax.Array, verifying: jax.Array) -> jax.Array:
+    """Counts over variables of the rank of ``verifying`` in the ensemble: (N + 1,) int32.
+
+    Rank r = number of members strictly below the verifying value (Hamill 2001,
+    Mon. Wea. Rev. 129, sec. 2); members (N, m), verifying (m,).
+    """
+    ranks = jnp.sum(members < verifying, axis=0)
+    # A one-hot compare and sum, not a scatter: it fuses into one small loop.
+    return jnp.sum(ranks[:, None] == jnp.arange(members.shape[0] + 1)[None, :], axis=0, dtype=jnp.int32)
+
+
+def make_cycle_diagnostics(groups, operator, weighted: bool):
+    """Return ``diagnose(key, truth, y, forecast, analysis, info, settings) -> dict`` of this cycle's series."""
+    groups = tuple(groups)
+
+    def diagnose(key, truth, y, forecast, analysis, info, settings):
+        mean_f, spread_f = ensemble_mean_and_spread(forecast)
+        mean_a, spread_a = ensemble_mean_and_spread(analysis)
+        out = {
+            "rmse_forecast": rmse(mean_f, truth),
+            "rmse_analysis": rmse(mean_a, truth),
+            "spread_forecast": spread_f,
+            "spread_analysis": spread_a,
+        }
+        if "spread_skill" in groups:
+            out["spread_skill_forecast"] = spread_f / out["rmse_forecast"]
+            out["spread_skill_analysis"] = spread_a / out["rmse_analysis"]
+        if "crps" in groups:
+            for when, state in (("forecast", forecast), ("analysis", analysis)):
+                out[f"crps_{when}"], out[f"crps_fair_{when}"] = ensemble_crps(state.members, normalised_weights(state), truth)
+        error_std = settings["observation"]["error_std"]
+        if "rank_histogram" in groups:
+            out["rank_truth_forecast"] = rank_counts(forecast.members, truth)
+            noisy = operator(forecast.members) + error_std * jax.random.normal(key, (forecast.members.shape[0], operator.size))
+            out["rank_observation_forecast"] = rank_counts(noisy, y)
+        needs_innovations = "innovation" in groups or "desroziers" in groups
+        if needs_innovations:
+            obs_f = operator(forecast.members)
+            w_f = normalised_weights(forecast)
+            d_ob = y - w_f @ obs_f
+        if "innovation" in groups:
+            variance = w_f @ (obs_f - w_f @ obs_f) ** 2 / (1.0 - jnp.sum(w_f**2))
+            out["innovation_mean"] = jnp.mean(d_ob)
+            out["innovation_ratio"] = jnp.mean(d_ob**2) / (jnp.mean(variance) + error_std**2)
+        if "desroziers" in groups:
+            d_oa = y - normalised_weights(analysis) @ operator(analysis.members)
+            out["desroziers_r"] = jnp.mean(d_oa * d_ob)
+            out["desroziers_hbht"] = jnp.mean((d_ob - d_oa) * d_ob)
+            out["desroziers_total"] = jnp.mean(d_ob * d_ob)
+        if "ess" in groups:
+            out["ess"] = info["ess"]
+        if "increment" in groups:
+            out["increment_norm"] = rmse(mean_a, mean_f)
+        return out
+
+    return diagnose

@@ -7,7 +7,7 @@ Value ranges and cross-key rules are checked afterwards by
 """
 
 from dataclasses import dataclass, field
-from typing import Any, Optional
+from typing import Any, List, Optional
 
 from hydra.core.config_store import ConfigStore
 from omegaconf import MISSING
@@ -145,6 +145,18 @@ FILTER_SCHEMAS = {
 
 
 @dataclass
+class StoreConfig:
+    """Optional fields stored per cycle (chunked, compressed); ensemble_every: store the
+    analysis ensemble every k-th cycle (0 = never)."""
+
+    truth: bool = False
+    observations: bool = False
+    forecast_mean: bool = False
+    analysis_mean: bool = False
+    ensemble_every: int = 0
+
+
+@dataclass
 class ExperimentConfig:
     """A whole twin experiment.
 
@@ -153,7 +165,12 @@ class ExperimentConfig:
     independent seeds run as one vectorised batch; initial_spread: standard
     deviation of the noise added to the truth to make the initial members;
     chunk_cycles: cycles per compiled chunk (streaming and progress);
-    output: HDF5 file to write (relative paths go in the job's run folder).
+    output: HDF5 file to write (relative paths go in the job's run folder);
+    diagnostics: optional diagnostic groups to compute (null: every group the
+    filter can give); store: optional stored fields; a run has diverged when
+    a value is not finite, or when its analysis RMSE stays above
+    divergence_factor x the climatological standard deviation for
+    divergence_patience consecutive cycles.
     """
 
     model: Any = MISSING
@@ -166,6 +183,10 @@ class ExperimentConfig:
     initial_spread: float = 1.0
     chunk_cycles: int = 1000
     output: Optional[str] = "result.h5"
+    diagnostics: Optional[List[str]] = None
+    store: StoreConfig = field(default_factory=StoreConfig)
+    divergence_factor: float = 1.0
+    divergence_patience: int = 50
 
 
 def register_schemas() -> None:

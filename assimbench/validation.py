@@ -91,6 +91,26 @@ def _check_filter(cfg, model_name: str) -> None:
         _real(cfg, "filter.jitter", "a finite standard deviation >= 0", minimum=0.0, strict=False)
 
 
+def filter_kind(cfg) -> tuple:
+    """(members, weighted) of the configured filter, from the config alone."""
+    members = int(cfg.filter.members) if "members" in cfg.filter else 1
+    return members, cfg.filter.name == "sir"
+
+
+def _check_diagnostics(cfg) -> None:
+    from assimbench.diagnostics import OPTIONAL, available_groups
+
+    asked = cfg.diagnostics
+    if asked is None:
+        return
+    available = available_groups(*filter_kind(cfg))
+    for name in asked:
+        if name not in OPTIONAL:
+            _fail("diagnostics", name, "names from " + ", ".join(OPTIONAL))
+        if name not in available:
+            _fail("diagnostics", name, f"filter {cfg.filter.name} can give only " + ", ".join(available))
+
+
 def check_config(cfg: DictConfig, model_names, filter_names) -> None:
     """Raise ConfigError for the first value or combination that is not allowed."""
     from assimbench.registry import STATE_SIZE
@@ -136,6 +156,10 @@ def check_config(cfg: DictConfig, model_names, filter_names) -> None:
     _integer(cfg, "replicates", 1, "an integer >= 1")
     _integer(cfg, "chunk_cycles", 1, "an integer >= 1")
     _real(cfg, "initial_spread", "a finite standard deviation >= 0", minimum=0.0, strict=False)
+    _check_diagnostics(cfg)
+    _integer(cfg, "store.ensemble_every", 0, "an integer >= 0 (0 = never)")
+    _real(cfg, "divergence_factor", "a finite factor > 0", minimum=0.0)
+    _integer(cfg, "divergence_patience", 1, "an integer >= 1 (cycles)")
     output = cfg.output
     if output is not None and (not isinstance(output, str) or not output.strip()):
         _fail("output", output, "a file path, or null for no file")

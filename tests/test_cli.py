@@ -64,6 +64,12 @@ BAD_INPUT = [
     (["filter.additive_std=-0.1"], ["filter.additive_std", ">= 0"]),
     (["observation.transform=cube"], ["observation.transform", "identity, absolute, square"]),
     (["filter=3dvar", "filter.members=5"], ["filter.members", "not a key"]),
+    (["filter=3dvar", "diagnostics=[rank_histogram]"], ["diagnostics", "rank_histogram", "3dvar can give only"]),
+    (["diagnostics=[brier]"], ["diagnostics", "brier", "crps"]),
+    (["filter=etkf", "diagnostics=[ess]"], ["diagnostics", "ess", "etkf can give only"]),
+    (["store.ensemble_every=-1"], ["store.ensemble_every", ">= 0"]),
+    (["divergence_patience=0"], ["divergence_patience", ">= 1"]),
+    (["divergence_factor=0"], ["divergence_factor", "> 0"]),
 ]
 
 

@@ -37,7 +37,9 @@ def test_xarray_opens_the_file_with_named_dimensions(stored):
     _, path = stored
     with xr.open_dataset(path, engine="h5netcdf") as ds:
         assert ds["rmse_analysis"].dims == ("replicate", "cycle")
-        assert ds.sizes == {"replicate": 2, "cycle": 40}
+        assert ds.sizes == {"replicate": 2, "cycle": 40, "rank": 7}  # 6 members: ranks 0..6
+        assert ds["rank_truth_forecast"].dims == ("replicate", "cycle", "rank")
+        np.testing.assert_array_equal(ds["rank_truth_forecast"].sum("rank").values, 10)  # one rank per variable
         np.testing.assert_array_equal(ds["cycle"].values, np.arange(1, 41))
         np.testing.assert_allclose(ds["time"].values, 0.05 * np.arange(1, 41))
         assert "time" in ds.coords

@@ -22,6 +22,7 @@ class Filter(NamedTuple):
     init: Callable
     analyse: Callable
     runs_model: bool = True
+    weighted: bool = False
 
 
 class EnsembleState(NamedTuple):

@@ -66,9 +66,10 @@ def with_inflation(update, pieces=frozenset()):
 
     def analyse(key, members, y, settings):
         f = settings["filter"]
-        noise_key, update_key = jax.random.split(key)
         prior = inflate_anomalies(members, f["inflation"])
-        if "additive" in pieces:
+        update_key = key
+        if "additive" in pieces:  # split only when needed: a split costs a threefry call per cycle
+            noise_key, update_key = jax.random.split(key)
             prior = add_centred_noise(noise_key, prior, f["additive_std"])
         posterior, info = update(update_key, prior, y, settings)
         if "rtpp" in pieces:

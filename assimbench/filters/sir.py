@@ -64,4 +64,4 @@ def make_sir(operator, members: int) -> Filter:
         log_weights = jnp.where(resample, jnp.full(members, -np.log(members), dtype=jnp.float64), log_weights)
         return ParticleState(particles, log_weights), {"ess": ess, "resampled": resample}
 
-    return Filter(name="sir", members=members, init=init, analyse=analyse)
+    return Filter(name="sir", members=members, init=init, analyse=analyse, weighted=True)
