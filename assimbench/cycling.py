@@ -28,7 +28,7 @@ from typing import NamedTuple
 import jax
 import jax.numpy as jnp
 
-from assimbench.diagnostics import ensemble_mean_and_spread, make_cycle_diagnostics
+from assimbench.diagnostics import ensemble_mean_and_spread, make_cycle_diagnostics, series_catalogue
 from assimbench.filters import Filter
 from assimbench.integrators import make_flow
 from assimbench.models import Model
@@ -121,6 +121,8 @@ def make_chunk(setup: TwinSetup, length: int):
     forecast_members = jax.vmap(flow, in_axes=(0, None))
 
     diagnose = make_cycle_diagnostics(setup.diagnostics, setup.operator, filt.weighted)
+    catalogue = series_catalogue(setup.diagnostics, filt.members)
+    scalar_names = sorted(name for name, series in catalogue.items() if series.extra_dim is None)
     fields = setup.fields
 
     def chunk_one(carry, rkey, first_cycle, settings):
@@ -129,11 +131,17 @@ def make_chunk(setup: TwinSetup, length: int):
         truth_end, truths, observations = truth_chunk(carry.truth, rkey, first_cycle, settings)
 
         def cycle(state, inputs):
-            k, truth, y = inputs
+            (k, noise), truth, y = inputs
             if filt.runs_model:
                 state = state._replace(members=forecast_members(state.members, settings["model"]))
             analysed, info = filt.analyse(jax.random.fold_in(filter_key, k), state, y, settings)
-            out = diagnose(jax.random.fold_in(diagnostic_key, k), truth, y, state, analysed, info, settings)
+            out = diagnose(noise, truth, y, state, analysed, info, settings)
+            # One packed vector per cycle instead of one stacked output per series:
+            # each scan output costs a small update op per cycle.
+            scalars = sorted(name for name, value in out.items() if value.ndim == 0)
+            out = {"_scalars": jnp.stack([out.pop(name).astype(jnp.float64) for name in scalars]), **out}
+            if "rank_truth_forecast" in out:
+                out["_ranks"] = jnp.stack([out.pop("rank_truth_forecast"), out.pop("rank_observation_forecast")])
             if "forecast_mean" in fields:
                 out["forecast_mean"] = ensemble_mean_and_spread(state)[0]
             if "analysis_mean" in fields:
@@ -143,7 +151,18 @@ def make_chunk(setup: TwinSetup, length: int):
             return analysed, out
 
         cycles = first_cycle + jnp.arange(length)
-        state_end, series = jax.lax.scan(cycle, carry.filter_state, (cycles, truths, observations))
+        if "rank_histogram" in setup.diagnostics:
+            # One batched draw per chunk is cheaper than a small draw per cycle; still keyed by cycle.
+            shape = (filt.members, setup.operator.size)
+            noise = jax.vmap(lambda k: jax.random.normal(jax.random.fold_in(diagnostic_key, k), shape))(cycles)
+        else:
+            noise = jax.vmap(lambda k: jax.random.fold_in(diagnostic_key, k))(cycles)
+        state_end, series = jax.lax.scan(cycle, carry.filter_state, ((cycles, noise), truths, observations))
+        packed = series.pop("_scalars")
+        series.update({name: packed[:, i] for i, name in enumerate(scalar_names)})
+        if "_ranks" in series:
+            ranks = series.pop("_ranks")
+            series["rank_truth_forecast"], series["rank_observation_forecast"] = ranks[:, 0], ranks[:, 1]
         if "truth" in fields:
             series["truth"] = truths
         if "observations" in fields:

@@ -110,7 +110,7 @@ def ensemble_mean_and_spread(state):
 PAIRWISE_LIMIT = 64
 
 
-def ensemble_crps(members: jax.Array, weights: jax.Array, truth: jax.Array):
+def ensemble_crps(members: jax.Array, weights, truth: jax.Array):
     """(CRPS, fair CRPS), each the mean over variables; members (N, n), weights (N,), truth (n,).
 
     CRPS = sum_i w_i |x_i - y| - 1/2 sum_ij w_i w_j |x_i - x_j| (Hersbach 2000, Wea.
@@ -119,7 +119,16 @@ def ensemble_crps(members: jax.Array, weights: jax.Array, truth: jax.Array):
     term by 1 - sum(w^2) (with equal weights: 1/(2 N (N - 1)); Ferro 2014, QJRMS 140).
     For large N the pair sum uses the sorted members: sum_ij w_i w_j |x_i - x_j| =
     2 sum_i w_(i) x_(i) (2 C_i - w_(i) - 1), C the cumulative sorted weights.
+    ``weights=None`` means equal weights (a cheaper path).
     """
+    n_members = members.shape[0]
+    if weights is None and n_members <= PAIRWISE_LIMIT:
+        absolute = jnp.mean(jnp.abs(members - truth), axis=0)
+        pairs = jnp.sum(jnp.abs(members[:, None, :] - members[None, :, :]), axis=(0, 1)) / n_members**2
+        fair_factor = n_members / (n_members - 1.0) if n_members > 1 else 1.0
+        return jnp.mean(absolute - 0.5 * pairs), jnp.mean(absolute - 0.5 * fair_factor * pairs)
+    if weights is None:
+        weights = jnp.full(n_members, 1.0 / n_members)
     absolute = weights @ jnp.abs(members - truth)  # (n,)
     if members.shape[0] <= PAIRWISE_LIMIT:
         gaps = jnp.abs(members[:, None, :] - members[None, :, :])  # (N, N, n)
@@ -165,11 +174,16 @@ def make_cycle_diagnostics(groups, operator, weighted: bool):
             out["spread_skill_analysis"] = spread_a / out["rmse_analysis"]
         if "crps" in groups:
             for when, state in (("forecast", forecast), ("analysis", analysis)):
-                out[f"crps_{when}"], out[f"crps_fair_{when}"] = ensemble_crps(state.members, normalised_weights(state), truth)
+                weights = normalised_weights(state) if weighted else None
+                out[f"crps_{when}"], out[f"crps_fair_{when}"] = ensemble_crps(state.members, weights, truth)
         error_std = settings["observation"]["error_std"]
         if "rank_histogram" in groups:
             out["rank_truth_forecast"] = rank_counts(forecast.members, truth)
-            noisy = operator(forecast.members) + error_std * jax.random.normal(key, (forecast.members.shape[0], operator.size))
+            # ``key`` is either a PRNG key or the chunk's pre-drawn N(0, 1) noise (N, p).
+            noise = key if key.shape == (forecast.members.shape[0], operator.size) else jax.random.normal(
+                key, (forecast.members.shape[0], operator.size)
+            )
+            noisy = operator(forecast.members) + error_std * noise
             out["rank_observation_forecast"] = rank_counts(noisy, y)
         needs_innovations = "innovation" in groups or "desroziers" in groups
         if needs_innovations:
