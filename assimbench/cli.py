@@ -107,16 +107,20 @@ def format_summary(result, path) -> str:
 
 
 class _ChunkProgress:
-    """A progress bar per chunk on a terminal (tqdm on stderr); silent otherwise."""
+    """A progress bar per chunk on a terminal (tqdm on stderr); silent otherwise.
+
+    The bar appears with the first finished chunk, so its rate excludes compilation.
+    """
 
     def __init__(self, total: int):
+        self._total = total
         self._bar = None
-        if sys.stderr.isatty():
+
+    def __call__(self, done: int, total: int) -> None:
+        if self._bar is None and sys.stderr.isatty():
             from tqdm import tqdm
 
             self._bar = tqdm(total=total, unit="cycle", desc="assimbench", leave=False, file=sys.stderr)
-
-    def __call__(self, done: int, total: int) -> None:
         if self._bar is not None:
             self._bar.update(done - self._bar.n)
 

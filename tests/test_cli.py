@@ -126,3 +126,8 @@ def test_a_multirun_writes_one_file_per_job(tmp_path):
             assert f.attrs["complete"]
             seen.add(f.attrs["config"].split("members: ")[1].split()[0])
     assert seen == {"5", "7"}
+
+
+def test_the_progress_bar_stays_quiet_when_stderr_is_not_a_terminal(tmp_path):
+    done = _run(SMALL + ["chunk_cycles=10"], tmp_path)
+    assert done.returncode == 0 and done.stderr == ""
