@@ -16,7 +16,7 @@ from assimbench.filters.inflation import (
     relax_to_prior_spread,
 )
 from assimbench.filters.letkf import letkf_analysis, local_windows
-from assimbench.filters.sir import ParticleState, effective_sample_size, make_sir, systematic_resample
+from assimbench.filters.sir import effective_sample_size, make_sir, systematic_resample
 from assimbench.filters.threedvar import gauss_newton_3dvar, threedvar_cost
 from assimbench.localization import gaspari_cohn
 from assimbench.observations import every_kth

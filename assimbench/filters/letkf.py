@@ -8,7 +8,6 @@ distant observations fade out smoothly. The local analyses are one batched
 computation over grid points, never a Python loop.
 """
 
-import jax
 import jax.numpy as jnp
 import numpy as np
 
