@@ -20,7 +20,7 @@ import numpy as np
 from omegaconf import DictConfig, OmegaConf
 
 from assimbench.composition import compose_config, validate_config
-from assimbench.cycling import TwinSetup, make_chunk, make_start, replicate_keys
+from assimbench.cycling import FIELDS, TwinSetup, make_chunk, make_start, replicate_keys
 from assimbench.climatology import climatology
 from assimbench.diagnostics import available_groups, series_catalogue
 from assimbench.observations import every_kth
@@ -79,17 +79,9 @@ def build(cfg: DictConfig):
     available = available_groups(filt.members, filt.weighted)
     groups = available if cfg.diagnostics is None else tuple(g for g in available if g in cfg.diagnostics)
     store = cfg.store
-    fields = tuple(
-        name
-        for name, wanted in (
-            ("truth", store.truth),
-            ("observations", store.observations),
-            ("forecast_mean", store.forecast_mean),
-            ("analysis_mean", store.analysis_mean),
-            ("analysis_ensemble", store.ensemble_every > 0),
-        )
-        if wanted
-    )
+    wanted = {name: bool(store[name]) for name in FIELDS if name != "analysis_ensemble"}
+    wanted["analysis_ensemble"] = store.ensemble_every > 0
+    fields = tuple(name for name in FIELDS if wanted[name])
     setup = TwinSetup(
         model=model,
         operator=operator,
@@ -186,8 +178,7 @@ def run_experiment(
     scalar_names = [n for n, lay in layouts.items() if lay.dims == ("replicate", "cycle")]
     count_names = [n for n, lay in layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "rank"]
     diagnostic_names = scalar_names + count_names
-    analyses = cfg.filter.name not in ("free", "climatology")
-    threshold = float(cfg.divergence_factor) * climate_std(setup.model) if analyses else np.inf
+    threshold = float(cfg.divergence_factor) * climate_std(setup.model) if setup.filter.assimilates else np.inf
     every = int(cfg.store.ensemble_every)
 
     tic = time.perf_counter()

@@ -131,15 +131,14 @@ def make_chunk(setup: TwinSetup, length: int):
         truth_end, truths, observations = truth_chunk(carry.truth, rkey, first_cycle, settings)
 
         def cycle(state, inputs):
-            (k, noise), truth, y = inputs
+            (k, rank_noise), truth, y = inputs
             if filt.runs_model:
                 state = state._replace(members=forecast_members(state.members, settings["model"]))
             analysed, info = filt.analyse(jax.random.fold_in(filter_key, k), state, y, settings)
-            out = diagnose(noise, truth, y, state, analysed, info, settings)
+            out = diagnose(rank_noise, truth, y, state, analysed, info, settings)
             # One packed vector per cycle instead of one stacked output per series:
             # each scan output costs a small update op per cycle.
-            scalars = sorted(name for name, value in out.items() if value.ndim == 0)
-            out = {"_scalars": jnp.stack([out.pop(name).astype(jnp.float64) for name in scalars]), **out}
+            out = {"_scalars": jnp.stack([out.pop(name).astype(jnp.float64) for name in scalar_names]), **out}
             if "rank_truth_forecast" in out:
                 out["_ranks"] = jnp.stack([out.pop("rank_truth_forecast"), out.pop("rank_observation_forecast")])
             if "forecast_mean" in fields:
@@ -157,10 +156,10 @@ def make_chunk(setup: TwinSetup, length: int):
             # ranks, so their last digits do not matter.
             shape = (filt.members, setup.operator.size)
             draw = lambda k: jax.random.normal(jax.random.fold_in(diagnostic_key, k), shape, dtype=jnp.float32)
-            noise = jax.vmap(draw)(cycles).astype(jnp.float64)
+            rank_noise = jax.vmap(draw)(cycles).astype(jnp.float64)
         else:
-            noise = jax.vmap(lambda k: jax.random.fold_in(diagnostic_key, k))(cycles)
-        state_end, series = jax.lax.scan(cycle, carry.filter_state, ((cycles, noise), truths, observations))
+            rank_noise = None
+        state_end, series = jax.lax.scan(cycle, carry.filter_state, ((cycles, rank_noise), truths, observations))
         packed = series.pop("_scalars")
         series.update({name: packed[:, i] for i, name in enumerate(scalar_names)})
         if "_ranks" in series:

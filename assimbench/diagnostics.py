@@ -157,10 +157,15 @@ def rank_counts(members: jax.Array, verifying: jax.Array) -> jax.Array:
 
 
 def make_cycle_diagnostics(groups, operator, weighted: bool):
-    """Return ``diagnose(key, truth, y, forecast, analysis, info, settings) -> dict`` of this cycle's series."""
+    """Return ``diagnose(rank_noise, truth, y, forecast, analysis, info, settings) -> dict`` of this cycle's series.
+
+    rank_noise: (N, p) standard normal draws that perturb the members for the
+    observation rank histogram (the cycle draws them per chunk); unused, and
+    may be None, when that group is off.
+    """
     groups = tuple(groups)
 
-    def diagnose(key, truth, y, forecast, analysis, info, settings):
+    def diagnose(rank_noise, truth, y, forecast, analysis, info, settings):
         mean_f, spread_f = ensemble_mean_and_spread(forecast)
         mean_a, spread_a = ensemble_mean_and_spread(analysis)
         out = {
@@ -179,11 +184,7 @@ def make_cycle_diagnostics(groups, operator, weighted: bool):
         error_std = settings["observation"]["error_std"]
         if "rank_histogram" in groups:
             out["rank_truth_forecast"] = rank_counts(forecast.members, truth)
-            # ``key`` is either a PRNG key or the chunk's pre-drawn N(0, 1) noise (N, p).
-            noise = key if key.shape == (forecast.members.shape[0], operator.size) else jax.random.normal(
-                key, (forecast.members.shape[0], operator.size)
-            )
-            noisy = operator(forecast.members) + error_std * noise
+            noisy = operator(forecast.members) + error_std * rank_noise
             out["rank_observation_forecast"] = rank_counts(noisy, y)
         needs_innovations = "innovation" in groups or "desroziers" in groups
         if needs_innovations:

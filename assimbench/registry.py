@@ -54,18 +54,16 @@ def _enkf(node, model, operator):
     return make_enkf(operator, int(node.members), bool(node.centre_perturbations), pieces), values
 
 
-def _letkf(node, model, operator):
-    values, pieces = _inflation(node)
-    radius = _radius(node)
-    filt = make_letkf(model, operator, int(node.members), radius, pieces)
-    return filt, {**values, "radius": radius if radius is not None else 0.0}
+def _localized(make):
+    """Builder for a filter with inflation pieces and a Gaspari-Cohn radius (null = off)."""
 
+    def build(node, model, operator):
+        values, pieces = _inflation(node)
+        radius = _radius(node)
+        filt = make(model, operator, int(node.members), radius, pieces)
+        return filt, {**values, "radius": radius if radius is not None else 0.0}
 
-def _ensrf(node, model, operator):
-    values, pieces = _inflation(node)
-    radius = _radius(node)
-    filt = make_ensrf(model, operator, int(node.members), radius, pieces)
-    return filt, {**values, "radius": radius if radius is not None else 0.0}
+    return build
 
 
 def _3dvar(node, model, operator):
@@ -90,13 +88,15 @@ def _climatology(node, model, operator):
 FILTERS = {
     "etkf": _etkf,
     "enkf": _enkf,
-    "letkf": _letkf,
-    "ensrf": _ensrf,
+    "letkf": _localized(make_letkf),
+    "ensrf": _localized(make_ensrf),
     "3dvar": _3dvar,
     "sir": _sir,
     "free": _free,
     "climatology": _climatology,
 }
 
-# Filters whose radius needs a distance between grid points and observations.
-LOCALIZED = ("letkf", "ensrf")
+# Static traits validation needs before anything is built (the built Filter
+# carries the same facts: ``weighted``).
+LOCALIZED = ("letkf", "ensrf")  # their radius needs a distance between grid points and observations
+WEIGHTED = ("sir",)  # weighted ensembles

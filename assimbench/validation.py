@@ -93,8 +93,10 @@ def _check_filter(cfg, model_name: str) -> None:
 
 def filter_kind(cfg) -> tuple:
     """(members, weighted) of the configured filter, from the config alone."""
+    from assimbench.registry import WEIGHTED
+
     members = int(cfg.filter.members) if "members" in cfg.filter else 1
-    return members, cfg.filter.name == "sir"
+    return members, cfg.filter.name in WEIGHTED
 
 
 def _check_diagnostics(cfg) -> None:

@@ -23,6 +23,7 @@ class Filter(NamedTuple):
     analyse: Callable
     runs_model: bool = True
     weighted: bool = False
+    assimilates: bool = True  # False for reference runs: no divergence rule applies
 
 
 class EnsembleState(NamedTuple):

@@ -16,7 +16,7 @@ def make_free_run(members: int) -> Filter:
         del key, y, settings
         return state, {}
 
-    return Filter(name="free", members=members, init=keep_ensemble, analyse=analyse)
+    return Filter(name="free", members=members, init=keep_ensemble, analyse=analyse, assimilates=False)
 
 
 def make_climatology(climate_mean) -> Filter:
@@ -30,4 +30,4 @@ def make_climatology(climate_mean) -> Filter:
         del key, y, settings
         return EnsembleState(members=climate_mean), {}
 
-    return Filter(name="climatology", members=1, init=init, analyse=analyse, runs_model=False)
+    return Filter(name="climatology", members=1, init=init, analyse=analyse, runs_model=False, assimilates=False)
