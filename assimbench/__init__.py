@@ -11,7 +11,7 @@ jax.config.update("jax_platforms", "cpu")
 
 __version__ = "0.1.0"
 
-from assimbench.api import compose_config, run, run_experiment  # noqa: E402
+from assimbench.api import compose_config, run, run_experiment  # noqa: E402  (after the x64 switch)
 from assimbench.results import read_result, write_result  # noqa: E402
 
-__all__ = ["compose_config", "run", "run_experiment", "read_result", "write_result", "__version__"]
+__all__ = ["__version__", "compose_config", "read_result", "run", "run_experiment", "write_result"]

@@ -8,21 +8,24 @@ The command line is a thin layer over :func:`run_experiment`.
 """
 
 import datetime
+import hashlib
+import json
 import platform
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from importlib import metadata
-from typing import Callable, Optional
 
 import jax
 import jax.numpy as jnp
 import numpy as np
 from omegaconf import DictConfig, OmegaConf
 
+from assimbench.climatology import climatology
 from assimbench.composition import compose_config, validate_config
 from assimbench.cycling import FIELDS, TwinSetup, make_chunk, make_start, replicate_keys
-from assimbench.climatology import climatology
 from assimbench.diagnostics import available_groups, series_catalogue
+from assimbench.lanes import hull_config, lane_config, lane_grid
 from assimbench.observations import every_kth
 from assimbench.registry import FILTERS, MODELS
 from assimbench.results import Layout, ResultWriter
@@ -42,6 +45,10 @@ class RunResult:
     per_replicate: name -> (replicates,) time means (and name_halfwidth);
     totals: rank-count name -> (replicates, N + 1) counts after burn-in;
     first_bad_cycle: (replicates,) first diverged cycle, -1 if none.
+
+    With lanes (``lanes``: key -> (L,) values) every array gains a leading
+    lane axis: series (L, R, cycles), summary values (L,), per_replicate
+    (L, R), totals (L, R, N + 1), first_bad_cycle (L, R).
     """
 
     config: DictConfig
@@ -59,7 +66,8 @@ class RunResult:
     layouts: dict = field(default_factory=dict)
     coordinates: dict = field(default_factory=dict)
     finish_attrs: dict = field(default_factory=dict)
-    path: Optional[str] = None
+    path: str | None = None
+    lanes: dict = field(default_factory=dict)
 
     @property
     def diverged(self) -> bool:
@@ -132,6 +140,13 @@ def climate_std(model) -> float:
     return float(np.sqrt(np.mean(np.diag(covariance))))
 
 
+def config_hash(cfg: DictConfig) -> str:
+    """SHA-256 of the resolved config without ``output`` (where a result goes does not change it)."""
+    plain = OmegaConf.to_container(cfg, resolve=True)
+    plain.pop("output", None)
+    return hashlib.sha256(json.dumps(plain, sort_keys=True).encode()).hexdigest()
+
+
 def provenance(cfg: DictConfig) -> dict:
     """Root attributes that make a file reproducible: config, versions, seeds, time."""
     from assimbench import __version__
@@ -144,6 +159,7 @@ def provenance(cfg: DictConfig) -> dict:
             versions[name] = "not installed"
     return {
         "config": OmegaConf.to_yaml(cfg, resolve=True),
+        "config_hash": config_hash(cfg),
         "assimbench_version": __version__,
         "python_version": platform.python_version(),
         "library_versions": " ".join(f"{k}={v}" for k, v in versions.items()),
@@ -151,14 +167,14 @@ def provenance(cfg: DictConfig) -> dict:
         "seed": int(cfg.seed),
         "replicates": int(cfg.replicates),
         "replicate_keys": "fold_in(PRNGKey(seed), r) for r = 0 .. replicates-1",
-        "created": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
+        "created": datetime.datetime.now(datetime.UTC).isoformat(timespec="seconds"),
     }
 
 
 def run_experiment(
     cfg: DictConfig,
-    output: Optional[str] = None,
-    progress: Optional[Callable[[int, int], None]] = None,
+    output: str | None = None,
+    progress: Callable[[int, int], None] | None = None,
     keep_series: bool = True,
 ) -> RunResult:
     """Validate ``cfg``, run the experiment, and write ``output`` (HDF5) if given.
@@ -169,32 +185,45 @@ def run_experiment(
     False. ``progress(done, total)`` is called after every chunk.
     """
     validate_config(cfg)
-    setup, settings = build(cfg)
-    cycles, replicates, burn_in = int(cfg.cycles), int(cfg.replicates), int(cfg.burn_in)
+    grid = lane_grid(cfg)
+    lanes, replicates = grid.size, int(cfg.replicates)
+    batch = lanes * replicates  # lane-major: batch index = lane * replicates + replicate
+    if grid.keys:
+        setup, _ = build(hull_config(cfg, grid))
+        lane_cfgs = [lane_config(cfg, grid, lane) for lane in range(lanes)]
+        built = [build(one) for one in lane_cfgs]
+        settings = jax.tree.map(lambda *leaves: jnp.repeat(jnp.stack(leaves), replicates), *(b[1] for b in built))
+        thresholds = [_threshold(cfg, setup, b[0].model) for b in built]
+    else:
+        setup, settings = build(cfg)
+        thresholds = [_threshold(cfg, setup, setup.model)]
+    threshold = np.repeat(np.asarray(thresholds), replicates)[:, None]
+    cycles, burn_in = int(cfg.cycles), int(cfg.burn_in)
     length = min(int(cfg.chunk_cycles), cycles)
-    keys = replicate_keys(int(cfg.seed), replicates)
+    keys = jnp.tile(replicate_keys(int(cfg.seed), replicates), (lanes, 1))
     attrs = provenance(cfg)
     layouts, coordinates = layouts_of(setup)
     scalar_names = [n for n, lay in layouts.items() if lay.dims == ("replicate", "cycle")]
     count_names = [n for n, lay in layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "rank"]
     diagnostic_names = scalar_names + count_names
-    threshold = float(cfg.divergence_factor) * climate_std(setup.model) if setup.filter.assimilates else np.inf
     every = int(cfg.store.ensemble_every)
+    batched = bool(grid.keys)
 
     tic = time.perf_counter()
-    start = make_start(setup).lower(keys, settings).compile()
+    start = make_start(setup, batched).lower(keys, settings).compile()
     carry = start(keys, settings)
     first = jnp.asarray(1, dtype=jnp.int64)
-    chunk = make_chunk(setup, length).lower(carry, keys, first, settings).compile()
+    chunk = make_chunk(setup, length, batched).lower(carry, keys, first, settings).compile()
     compile_seconds = time.perf_counter() - tic
 
     writer = None
     if output is not None:
-        writer = ResultWriter(output, replicates, float(cfg.observation.interval), layouts, coordinates, attrs)
-    means = TimeMeans(replicates, cycles, burn_in)
+        writer = ResultWriter(output, replicates, float(cfg.observation.interval), layouts, coordinates, attrs,
+                              grid.coordinates() or None)
+    means = TimeMeans(batch, cycles, burn_in)
     kept = {name: [] for name in diagnostic_names} if keep_series else None
-    first_bad = np.full(replicates, -1, dtype=np.int64)
-    open_runs = np.zeros(replicates, dtype=np.int64)
+    first_bad = np.full(batch, -1, dtype=np.int64)
+    open_runs = np.zeros(batch, dtype=np.int64)
     patience = int(cfg.divergence_patience)
     run_seconds = 0.0
     try:
@@ -211,7 +240,7 @@ def run_experiment(
                 out["analysis_ensemble"] = out["analysis_ensemble"][:, snapshots - first_cycle]
             # Diverged: any non-finite value, or a lost filter (analysis RMSE above the
             # threshold for `patience` consecutive cycles; a brief excursion is a result).
-            broken = np.zeros((replicates, keep), dtype=bool)
+            broken = np.zeros((batch, keep), dtype=bool)
             for name in scalar_names:
                 broken |= ~np.isfinite(out[name])
             newly = (first_bad < 0) & broken.any(axis=1)
@@ -229,7 +258,7 @@ def run_experiment(
                 progress(first_cycle + keep - 1, cycles)
         summary, per_replicate = {}, {}
         for name in scalar_names:
-            stats_ = means.summarise(name)
+            stats_ = means.summarise_groups(name, lanes)
             summary[name] = stats_["mean"]
             summary[name + "_low"] = stats_["low"]
             summary[name + "_high"] = stats_["high"]
@@ -237,11 +266,13 @@ def run_experiment(
             per_replicate[name + "_halfwidth"] = stats_["per_replicate_halfwidth"]
         for when in ("forecast", "analysis"):
             summary[f"spread_skill_ratio_{when}"] = summary[f"spread_{when}"] / summary[f"rmse_{when}"]
+        if not grid.keys:
+            summary = {name: float(value[0]) for name, value in summary.items()}
         totals = {name: means.totals(name) for name in count_names}
         finish_attrs = {
             "diverged": bool(np.any(first_bad >= 0)),
             "burn_in": burn_in,
-            "divergence_threshold": threshold,
+            "divergence_threshold": float(threshold[0, 0]) if lanes == 1 else threshold[::replicates, 0],
             "divergence_patience": patience,
             "interval_method": "batch means, 20 batches after burn-in, Student t 95%",
             "compile_seconds": compile_seconds,
@@ -267,6 +298,8 @@ def run_experiment(
         )
         if writer is not None:
             result.path = writer.finish(summary, per_replicate, totals, first_bad, finish_attrs)
+        if grid.keys:
+            _split_lanes(result, grid, replicates)
     except BaseException:
         if writer is not None:
             writer.close_incomplete()
@@ -274,6 +307,26 @@ def run_experiment(
     return result
 
 
-def run(overrides=(), output: Optional[str] = None) -> RunResult:
+def _threshold(cfg: DictConfig, setup: TwinSetup, model) -> float:
+    """Analysis RMSE above which a run counts as lost (inf for reference runs)."""
+    if not setup.filter.assimilates:
+        return np.inf
+    return float(cfg.divergence_factor) * climate_std(model)
+
+
+def _split_lanes(result: RunResult, grid, replicates: int) -> None:
+    """Reshape the flat (lanes x replicates) batch axis of every array to (lane, replicate)."""
+    def split(values):
+        values = np.asarray(values)
+        return values.reshape((grid.size, replicates) + values.shape[1:])
+
+    result.series = {name: split(v) for name, v in result.series.items()}
+    result.per_replicate = {name: split(v) for name, v in result.per_replicate.items()}
+    result.totals = {name: split(v) for name, v in result.totals.items()}
+    result.first_bad_cycle = split(result.first_bad_cycle)
+    result.lanes = grid.coordinates()
+
+
+def run(overrides=(), output: str | None = None) -> RunResult:
     """Compose the config from ``overrides`` and run it; see :func:`run_experiment`."""
     return run_experiment(compose_config(overrides), output=output)

@@ -3,20 +3,30 @@
 Before Hydra starts, every job of the command (every point of a ``-m`` sweep)
 is composed and validated, so a bad value stops the whole command with one
 line on stderr and exit status 2, before anything is written.
+
+Resume: a job whose output already holds a complete result of the same
+resolved config (the stored ``config_hash``) is skipped; a complete result
+of another config is never overwritten (exit 2); a missing or incomplete
+file is (re)written. In a multirun each job's folder is named by its own
+overrides, so re-running the same command into the same ``hydra.sweep.dir``
+finds the finished jobs, and the command says how many it skips.
 """
 
+import hashlib
 import itertools
 import os
 import sys
 
 import hydra
+import numpy as np
 from hydra.core.hydra_config import HydraConfig
 from hydra.core.override_parser.overrides_parser import OverridesParser
 from hydra.errors import HydraException
-from omegaconf import DictConfig
+from omegaconf import DictConfig, OmegaConf
 
-from assimbench.api import run_experiment
+from assimbench.api import config_hash, run_experiment
 from assimbench.composition import compose_config, config_dir
+from assimbench.results import stored_config_hash
 from assimbench.validation import ConfigError
 
 EXIT_BAD_INPUT = 2
@@ -53,22 +63,79 @@ def expand_jobs(overrides: list[str], multirun: bool) -> list[list[str]]:
     return [list(job) for job in itertools.product(*choices)]
 
 
+MAX_FOLDER_NAME = 120
+
+
+def job_folder(override_dirname: str) -> str:
+    """A job's folder inside a sweep: its overrides, shortened with a hash when too long for a path."""
+    name = override_dirname or "defaults"
+    if len(name) <= MAX_FOLDER_NAME:
+        return name
+    digest = hashlib.sha256(name.encode()).hexdigest()[:12]
+    return f"{name[:MAX_FOLDER_NAME - 13]}-{digest}"
+
+
+if not OmegaConf.has_resolver("job_folder"):
+    OmegaConf.register_new_resolver("job_folder", job_folder)
+
+
+def _sweep_dir(overrides: list[str]) -> str:
+    for override in overrides:
+        key, _, value = override.partition("=")
+        if key.lstrip("+") == "hydra.sweep.dir":
+            return value
+    return str(OmegaConf.load(os.path.join(config_dir(), "config.yaml")).hydra.sweep.dir)
+
+
+def finished_hashes(folder: str) -> set:
+    """Config hashes of the complete result files under ``folder`` (any depth)."""
+    hashes = set()
+    for root, _, files in os.walk(folder):
+        for name in files:
+            if name.endswith(".h5"):
+                digest = stored_config_hash(os.path.join(root, name))
+                if digest is not None:
+                    hashes.add(digest)
+    return hashes
+
+
 def preflight(argv: list[str]) -> None:
-    """Compose and validate every job of ``argv``; raise ConfigError on the first bad one."""
+    """Compose and validate every job of ``argv``; raise ConfigError on the first bad one.
+    For a multirun, say how many jobs already have a complete result (they are skipped)."""
     from hydra._internal.utils import get_args_parser
 
     args = get_args_parser().parse_args(argv)
     if args.config_name not in (None, "config") or args.config_path or args.config_dir:
         raise ConfigError("--config-name/--config-path/--config-dir are not supported; use overrides")
-    for job in expand_jobs(list(args.overrides), bool(args.multirun)):
-        compose_config(job)
+    jobs = [compose_config(job) for job in expand_jobs(list(args.overrides), bool(args.multirun))]
+    if args.multirun:
+        folder = _sweep_dir(list(args.overrides))
+        done = finished_hashes(folder) if os.path.isdir(folder) and "${" not in folder else set()
+        skipped = sum(config_hash(cfg) in done for cfg in jobs)
+        if skipped:
+            print(f"assimbench: resuming {folder}: {skipped} of {len(jobs)} jobs already have a complete "
+                  "result with the same config and are skipped", file=sys.stderr, flush=True)
+
+
+def _already_done(cfg: DictConfig, output: str) -> bool:
+    """True when ``output`` holds a complete result of this config; ConfigError when it
+    holds a complete result of another config (never overwritten)."""
+    if not os.path.exists(output):
+        return False
+    stored = stored_config_hash(output)
+    if stored is None:
+        return False  # incomplete or unreadable: run again
+    if stored != config_hash(cfg):
+        raise ConfigError(f"output={output} holds a complete result of another config; it is not overwritten "
+                          "(choose another output or hydra.sweep.dir)")
+    return True
 
 
 def _cell(summary, name):
     if name not in summary:
         return f"{'-':>22}"
     mean, low, high = summary[name], summary.get(name + "_low"), summary.get(name + "_high")
-    if low is None or not (low == low):  # no interval (nan)
+    if low is None or np.isnan(low):  # no interval
         return f"{mean:>22.4f}"
     return f"{mean:.4f} +- {(high - low) / 2:.4f}".rjust(22)
 
@@ -84,6 +151,9 @@ def format_summary(result, path) -> str:
         f"assimbench  {model.name} (n={size})  {cfg.filter.name}{members}  "
         f"{reps} replicate{'s' if reps > 1 else ''} x {cfg.cycles} cycles (burn-in {cfg.burn_in})"
     )
+    if result.lanes:
+        head += f", {len(next(iter(result.lanes.values())))} lanes"
+        return "\n".join([head] + _lane_rows(result) + _footer(result, path))
     s = result.summary
     lines = [head, f"  {'time mean (95%)':<20}{'forecast':>22}{'analysis':>22}"]
     for label, stem in (("RMSE", "rmse"), ("spread", "spread"), ("spread / RMSE", "spread_skill"),
@@ -97,13 +167,35 @@ def format_summary(result, path) -> str:
     if result.diverged:
         where = ", ".join(f"replicate {r} at cycle {c}" for r, c in enumerate(result.first_bad_cycle) if c >= 0)
         lines.append(f"  DIVERGED: {where}")
-    lines.append(
+    return "\n".join(lines + _footer(result, path))
+
+
+def _lane_rows(result) -> list:
+    """One row per lane: its values, analysis RMSE and spread with 95% intervals, lost replicates."""
+    keys = list(result.lanes)
+    width = max(12, *(len(k) + 2 for k in keys))
+    s = result.summary
+    head = "  " + "".join(f"{k:>{width}}" for k in keys)
+    head += f"{'analysis RMSE (95%)':>24}{'analysis spread':>22}{'lost':>7}"
+    rows = [head]
+    for lane in range(len(result.lanes[keys[0]])):
+        one = {name: float(np.asarray(v)[lane]) for name, v in s.items()}
+        lost = int(np.sum(result.first_bad_cycle[lane] >= 0))
+        row = "  " + "".join(f"{result.lanes[k][lane]:>{width}g}" for k in keys)
+        rows.append(row + f"{_cell(one, 'rmse_analysis'):>24}{_cell(one, 'spread_analysis')}{lost:>7}")
+    return rows
+
+
+def _footer(result, path) -> list:
+    batch = int(np.size(result.first_bad_cycle))
+    runs = f"{batch} run{'s' if batch > 1 else ''} side by side"
+    lines = [
         f"  compile {result.compile_seconds:.1f} s, cycling {result.run_seconds:.2f} s "
-        f"({result.microseconds_per_cycle:.0f} us per cycle for {reps} replicate{'s' if reps > 1 else ''})"
-    )
+        + f"({result.microseconds_per_cycle:.0f} us per cycle for {runs})"
+    ]
     if path is not None:
         lines.append(f"  result: {path}")
-    return "\n".join(lines)
+    return lines
 
 
 class _ChunkProgress:
@@ -136,6 +228,9 @@ def _hydra_app(cfg: DictConfig) -> None:
         output = os.path.join(HydraConfig.get().runtime.output_dir, output)
     progress = _ChunkProgress(int(cfg.cycles))
     try:
+        if output is not None and _already_done(cfg, output):
+            print(f"assimbench: skipped: {output} is complete for this config", flush=True)
+            return
         result = run_experiment(cfg, output=output, progress=progress, keep_series=False)
     except ConfigError as err:
         sys.exit(_fail(str(err)))

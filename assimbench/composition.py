@@ -17,6 +17,7 @@ from hydra.errors import HydraException
 from omegaconf import DictConfig, OmegaConf
 from omegaconf.errors import OmegaConfBaseException
 
+from assimbench.lanes import check_lanes
 from assimbench.registry import FILTERS, MODELS
 from assimbench.schema import SCHEMA_PREFIX, register_schemas
 from assimbench.validation import ConfigError, check_config
@@ -93,6 +94,9 @@ def _translate(err: BaseException, overrides) -> ConfigError:
         key = unknown.group(1)
         group_choices = [o for o in overrides if _split(o)[0] in GROUPS]
         known = _all_keys(_compose(group_choices))
+        if key.startswith("lanes."):
+            given = next((_split(o)[1] for o in overrides if _split(o)[0] == key), "")
+            return _lane_key_error(key[len("lanes."):], known, given.strip("[]") or "a,b")
         if "." not in key and not message.startswith("Could not override"):
             parent = next((_split(o)[0] for o in overrides if _split(o)[0].endswith("." + key)), key)
             key = parent
@@ -106,6 +110,19 @@ def _translate(err: BaseException, overrides) -> ConfigError:
     failing = re.search(r"override (\S+)", message)
     where = failing.group(1) if failing else "configuration"
     return ConfigError(f"{where} is not allowed: {_first_line(cause)}")
+
+
+def _lane_key_error(key: str, known: list, values: str) -> ConfigError:
+    """A lane over a key that is not a traced setting: point to multirun, or to the close name."""
+    lane_keys = [k[len("lanes."):] for k in known if k.startswith("lanes.")]
+    if key in known:
+        return ConfigError(
+            f"lanes.{key} is not allowed: {key} changes array shapes or code paths, so it cannot be a lane; "
+            f"run its values as separate jobs with --multirun, e.g. -m {key}={values}"
+        )
+    close = difflib.get_close_matches(key, lane_keys, n=1, cutoff=0.6)
+    hint = f"; did you mean lanes.{close[0]}?" if close else "; lane keys: " + ", ".join(lane_keys)
+    return ConfigError(f"lanes.{key} is not a lane key{hint}")
 
 
 def compose_config(overrides=(), validate: bool = True) -> DictConfig:
@@ -129,6 +146,7 @@ def compose_config(overrides=(), validate: bool = True) -> DictConfig:
 def validate_config(cfg: DictConfig) -> None:
     """Value ranges and cross-key rules (see :mod:`assimbench.validation`)."""
     check_config(cfg, MODELS, FILTERS)
+    check_lanes(cfg, lambda one: check_config(one, MODELS, FILTERS))
 
 
-__all__ = ["compose_config", "validate_config", "group_options", "config_dir", "GROUPS", "SCHEMA_PREFIX"]
+__all__ = ["GROUPS", "SCHEMA_PREFIX", "compose_config", "config_dir", "group_options", "validate_config"]

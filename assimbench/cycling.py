@@ -28,7 +28,11 @@ from typing import NamedTuple
 import jax
 import jax.numpy as jnp
 
-from assimbench.diagnostics import ensemble_mean_and_spread, make_cycle_diagnostics, series_catalogue
+from assimbench.diagnostics import (
+    ensemble_mean_and_spread,
+    make_cycle_diagnostics,
+    series_catalogue,
+)
 from assimbench.filters import Filter
 from assimbench.integrators import make_flow
 from assimbench.models import Model
@@ -67,8 +71,12 @@ def replicate_keys(seed: int, replicates: int) -> jax.Array:
     return jax.vmap(lambda r: jax.random.fold_in(base, r))(jnp.arange(replicates))
 
 
-def make_start(setup: TwinSetup):
-    """Return jitted ``start(keys, settings) -> CycleCarry`` batched over replicates."""
+def make_start(setup: TwinSetup, batched_settings: bool = False):
+    """Return jitted ``start(keys, settings) -> CycleCarry`` batched over replicates.
+
+    With ``batched_settings`` every leaf of ``settings`` has a leading batch
+    axis matching ``keys`` (lanes x replicates flattened); otherwise one
+    setting serves the whole batch."""
     model = setup.model
     spinup = make_flow(model.tendency, model.dt, max(1, round(model.spinup_time / model.dt)))
 
@@ -79,7 +87,7 @@ def make_start(setup: TwinSetup):
         filter_key = jax.random.fold_in(jax.random.fold_in(rkey, 3), 0)
         return CycleCarry(truth=truth, filter_state=setup.filter.init(filter_key, ensemble, settings))
 
-    return jax.jit(jax.vmap(start_one, in_axes=(0, None)))
+    return jax.jit(jax.vmap(start_one, in_axes=(0, 0 if batched_settings else None)))
 
 
 def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycle: int, length: int):
@@ -107,13 +115,15 @@ def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycl
     return truth_chunk
 
 
-def make_chunk(setup: TwinSetup, length: int):
+def make_chunk(setup: TwinSetup, length: int, batched_settings: bool = False):
     """Return jitted ``chunk(carry, keys, first_cycle, settings) -> (carry, series)``.
 
     Runs cycles first_cycle .. first_cycle + length - 1 for every replicate
     (vmapped); ``series`` maps each diagnostic name to a (replicates, length)
     array. ``first_cycle`` and ``settings`` are traced, so one compiled
-    program serves every chunk and every value of the swept floats.
+    program serves every chunk and every value of the swept floats. With
+    ``batched_settings`` the settings carry a leading batch axis like ``keys``
+    (lanes; see :func:`make_start`).
     """
     model, filt = setup.model, setup.filter
     truth_chunk = make_truth_chunk(model, setup.operator, setup.steps_per_cycle, length)
@@ -171,4 +181,4 @@ def make_chunk(setup: TwinSetup, length: int):
             series["observations"] = observations
         return CycleCarry(truth=truth_end, filter_state=state_end), series
 
-    return jax.jit(jax.vmap(chunk_one, in_axes=(0, 0, None, None)))
+    return jax.jit(jax.vmap(chunk_one, in_axes=(0, 0, None, 0 if batched_settings else None)))

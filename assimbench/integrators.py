@@ -6,7 +6,8 @@ tableaux exist so that the convergence test can show that the order comes from
 the coefficients, not from the code.
 """
 
-from typing import Callable, NamedTuple
+from collections.abc import Callable
+from typing import NamedTuple
 
 import jax
 import jax.numpy as jnp

@@ -6,7 +6,8 @@ single state ``(n,)`` and an ensemble ``(members, n)``. Shape-fixing choices
 may sweep (forcing, sigma, ...) are a dict of traced parameters.
 """
 
-from typing import Callable, NamedTuple
+from collections.abc import Callable
+from typing import NamedTuple
 
 import jax
 import jax.numpy as jnp

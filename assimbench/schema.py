@@ -7,7 +7,7 @@ Value ranges and cross-key rules are checked afterwards by
 """
 
 from dataclasses import dataclass, field
-from typing import Any, List, Optional
+from typing import Any
 
 from hydra.core.config_store import ConfigStore
 from omegaconf import MISSING
@@ -87,7 +87,7 @@ class LETKFConfig(InflationConfig):
     """LETKF; radius is the Gaspari-Cohn half-width c in grid units (null: no localization)."""
 
     name: str = "letkf"
-    radius: Optional[float] = 4.0
+    radius: float | None = 4.0
 
 
 @dataclass
@@ -95,7 +95,7 @@ class EnSRFConfig(InflationConfig):
     """Serial EnSRF; radius as for the LETKF (null: no localization)."""
 
     name: str = "ensrf"
-    radius: Optional[float] = 4.0
+    radius: float | None = 4.0
 
 
 @dataclass
@@ -157,6 +157,53 @@ class StoreConfig:
 
 
 @dataclass
+class ModelLanes:
+    """Lane values of the model's dynamic parameters (null: not a lane)."""
+
+    forcing: list[float] | None = None
+    sigma: list[float] | None = None
+    rho: list[float] | None = None
+    beta: list[float] | None = None
+
+
+@dataclass
+class ObservationLanes:
+    """Lane values of the observation error standard deviation (null: not a lane)."""
+
+    error_std: list[float] | None = None
+
+
+@dataclass
+class FilterLanes:
+    """Lane values of the filter's traced settings (null: not a lane)."""
+
+    inflation: list[float] | None = None
+    additive_std: list[float] | None = None
+    rtpp: list[float] | None = None
+    rtps: list[float] | None = None
+    radius: list[float] | None = None
+    b_scale: list[float] | None = None
+    jitter: list[float] | None = None
+    ess_threshold: list[float] | None = None
+
+
+@dataclass
+class LanesConfig:
+    """Settings run side by side in one compiled program (see assimbench/lanes.py).
+
+    Every non-null list is one lane axis; the lanes are all combinations of
+    the lists, each crossed with every replicate. Only settings that are
+    traced floats can be lanes; keys that change shapes or code (members,
+    state size, filter kind, ...) are swept with --multirun instead.
+    """
+
+    model: ModelLanes = field(default_factory=ModelLanes)
+    observation: ObservationLanes = field(default_factory=ObservationLanes)
+    filter: FilterLanes = field(default_factory=FilterLanes)
+    initial_spread: list[float] | None = None
+
+
+@dataclass
 class ExperimentConfig:
     """A whole twin experiment.
 
@@ -170,7 +217,8 @@ class ExperimentConfig:
     filter can give); store: optional stored fields; a run has diverged when
     a value is not finite, or when its analysis RMSE stays above
     divergence_factor x the climatological standard deviation for
-    divergence_patience consecutive cycles.
+    divergence_patience consecutive cycles; lanes: settings run side by
+    side as one vectorised batch (LanesConfig).
     """
 
     model: Any = MISSING
@@ -182,11 +230,12 @@ class ExperimentConfig:
     replicates: int = 1
     initial_spread: float = 1.0
     chunk_cycles: int = 1000
-    output: Optional[str] = "result.h5"
-    diagnostics: Optional[List[str]] = None
+    output: str | None = "result.h5"
+    diagnostics: list[str] | None = None
     store: StoreConfig = field(default_factory=StoreConfig)
     divergence_factor: float = 1.0
     divergence_patience: int = 50
+    lanes: LanesConfig = field(default_factory=LanesConfig)
 
 
 def register_schemas() -> None:

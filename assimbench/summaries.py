@@ -53,17 +53,25 @@ class TimeMeans:
 
     def summarise(self, name: str) -> dict:
         """Per-replicate means and half-widths, and the overall mean with its interval."""
+        out = self.summarise_groups(name, 1)
+        return {**out, "mean": float(out["mean"][0]), "low": float(out["low"][0]), "high": float(out["high"][0])}
+
+    def summarise_groups(self, name: str, groups: int) -> dict:
+        """As :meth:`summarise`, with the replicates split into ``groups`` equal
+        consecutive groups (lanes): mean, low, high are (groups,) arrays, each
+        over the replicates of its group."""
         batch_means = self.sums[name] / self.sizes  # (R, B)
         per_replicate = self.sums[name].sum(axis=1) / self.sizes.sum()
+        size = self.replicates // groups
         if self.batches > 1:
             se = batch_means.std(axis=1, ddof=1) / np.sqrt(self.batches)
             half = stats.t.ppf(0.975, self.batches - 1) * se
-            overall_se = np.sqrt(np.sum(se**2)) / self.replicates
-            overall_half = stats.t.ppf(0.975, self.replicates * (self.batches - 1)) * overall_se
+            overall_se = np.sqrt(np.sum(se.reshape(groups, size) ** 2, axis=1)) / size
+            overall_half = stats.t.ppf(0.975, size * (self.batches - 1)) * overall_se
         else:
             half = np.full(self.replicates, np.nan)
-            overall_half = np.nan
-        mean = float(per_replicate.mean())
+            overall_half = np.full(groups, np.nan)
+        mean = per_replicate.reshape(groups, size).mean(axis=1)
         return {
             "per_replicate": per_replicate,
             "per_replicate_halfwidth": half,

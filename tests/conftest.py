@@ -8,8 +8,9 @@ import jax  # noqa: E402
 
 jax.config.update("jax_enable_x64", True)
 
-import assimbench  # noqa: E402,F401  (its import also switches x64 on; kept explicit here)
 import pytest  # noqa: E402
+
+import assimbench  # noqa: E402,F401  (its import also switches x64 on; kept explicit here)
 
 # ASSIMBENCH_LONG=1 runs the long reproductions in full; CI runs the short forms.
 LONG = os.environ.get("ASSIMBENCH_LONG", "") == "1"

@@ -70,6 +70,9 @@ BAD_INPUT = [
     (["store.ensemble_every=-1"], ["store.ensemble_every", ">= 0"]),
     (["divergence_patience=0"], ["divergence_patience", ">= 1"]),
     (["divergence_factor=0"], ["divergence_factor", "> 0"]),
+    (["lanes.filter.members=[10,20]"], ["lanes.filter.members", "--multirun", "filter.members=10,20"]),
+    (["lanes.filter.inflation=[1.1,0.5]"], ["lanes.filter.inflation=0.5", ">= 1"]),
+    (["lanes.filter.radius=[2.0]"], ["lanes.filter.radius", "no setting radius"]),
 ]
 
 
@@ -115,17 +118,60 @@ def test_an_absolute_output_path_is_used_as_given(tmp_path):
     assert target.is_file()
 
 
-def test_a_multirun_writes_one_file_per_job(tmp_path):
-    done = _run(["-m", "filter.members=5,7", "filter.inflation=1.02,1.1"] + SMALL[:-1], tmp_path)
+def _members_of(path):
+    with h5py.File(path, "r") as f:
+        assert f.attrs["complete"]
+        return f.attrs["config"].split("members: ")[1].split()[0]
+
+
+SWEEP = ["-m", "filter.members=5,7", "filter.inflation=1.02,1.1"] + SMALL[:-1] + ["hydra.sweep.dir=sweeps/study"]
+
+
+def test_a_multirun_writes_one_file_per_job_and_a_rerun_resumes(tmp_path):
+    """Basic launcher; the second identical command skips finished jobs and redoes the others."""
+    done = _run(SWEEP, tmp_path)
     assert done.returncode == 0, done.stderr
-    files = sorted(tmp_path.glob("sweeps/*/*/*/result.h5"))
+    files = sorted((tmp_path / "sweeps" / "study").glob("*/result.h5"))
     assert len(files) == 4
-    seen = set()
-    for path in files:
-        with h5py.File(path, "r") as f:
-            assert f.attrs["complete"]
-            seen.add(f.attrs["config"].split("members: ")[1].split()[0])
-    assert seen == {"5", "7"}
+    assert {_members_of(p) for p in files} == {"5", "7"}
+    assert "filter.inflation=1.02,filter.members=5" in str(files[0])  # a job's folder names its overrides
+    missing, incomplete, kept = files[0], files[1], files[2:]
+    missing.unlink()
+    with h5py.File(incomplete, "r+") as f:
+        f.attrs["complete"] = False
+    stamps = [p.stat().st_mtime_ns for p in kept]
+    again = _run(SWEEP, tmp_path)
+    assert again.returncode == 0, again.stderr
+    assert "2 of 4 jobs already have a complete result" in again.stderr
+    assert again.stdout.count("skipped:") == 2
+    assert [p.stat().st_mtime_ns for p in kept] == stamps
+    assert missing.is_file() and _members_of(incomplete) in {"5", "7"}
+
+
+def test_a_complete_result_of_another_config_is_never_overwritten(tmp_path):
+    target = tmp_path / "mine.h5"
+    assert _run(SMALL + [f"output={target}"], tmp_path).returncode == 0
+    before = target.read_bytes()
+    done = _run(SMALL + ["filter.inflation=1.2", f"output={target}"], tmp_path)
+    assert done.returncode == 2 and "another config" in done.stderr and "not overwritten" in done.stderr
+    assert target.read_bytes() == before
+
+
+def test_the_joblib_launcher_runs_jobs_in_parallel_processes(tmp_path):
+    pytest.importorskip("hydra_plugins.hydra_joblib_launcher")
+    done = _run(["-m", "filter.members=5,7"] + SMALL[:-1] + ["hydra/launcher=joblib", "hydra.sweep.dir=sweeps/j"], tmp_path)
+    assert done.returncode == 0, done.stderr
+    files = sorted((tmp_path / "sweeps" / "j").glob("*/result.h5"))
+    assert {_members_of(p) for p in files} == {"5", "7"}
+
+
+def test_the_submitit_launcher_in_local_mode_runs_a_job_end_to_end(tmp_path):
+    pytest.importorskip("hydra_plugins.hydra_submitit_launcher")
+    done = _run(["-m", "filter.members=5"] + SMALL[:-1] + ["hydra/launcher=submitit_local", "hydra.sweep.dir=sweeps/s"],
+                tmp_path)
+    assert done.returncode == 0, done.stderr
+    files = sorted((tmp_path / "sweeps" / "s").glob("*/result.h5"))
+    assert len(files) == 1 and _members_of(files[0]) == "5"
 
 
 def test_the_progress_bar_stays_quiet_when_stderr_is_not_a_terminal(tmp_path):

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 import scipy.linalg
 
-from assimbench.filters.etkf import etkf_analysis, make_etkf
 from assimbench.filters import EnsembleState
+from assimbench.filters.etkf import etkf_analysis, make_etkf
 from assimbench.filters.inflation import inflate_anomalies
 from assimbench.observations import every_kth
 

@@ -9,7 +9,8 @@ per-cycle arrays the filter reports. ``settings`` is the nested dict of traced
 floats (``settings["filter"]["inflation"]``, ``settings["observation"]["error_std"]``...).
 """
 
-from typing import Callable, NamedTuple
+from collections.abc import Callable
+from typing import NamedTuple
 
 import jax
 
