@@ -99,6 +99,11 @@ def build_report(paths: list, out: str) -> tuple:
                   "never compared with each other."]
     lines += ["", "## Tuned: lowest time-mean analysis RMSE per filter and ensemble size (no lost replicate)", "",
               to_markdown(tuned_columns, tuned_rows)]
+    chosen = {(r.experiment, r.filter, r.members or 0) for r in best}
+    never = sorted({(r.experiment, r.filter, r.members or 0) for r in rows} - chosen)
+    if never:
+        lines += ["Every setting lost a replicate (no tuned value): "
+                  + ", ".join(f"e{e} {f} N={m}" for e, f, m in never) + ".", ""]
     lines += ["## Paired differences of tuned filters (a minus b, analysis RMSE, same truth and observations)", "",
               to_markdown(pair_columns, pairs) if pairs else "No two filters share an experiment and ensemble size.\n"]
     lines += ["## Every setting (all columns, file paths included: summary.csv)", "",
