@@ -184,6 +184,7 @@ def run_experiment(
     memory does not grow with the number of cycles when ``keep_series`` is
     False. ``progress(done, total)`` is called after every chunk.
     """
+    entered = time.perf_counter()
     validate_config(cfg)
     grid = lane_grid(cfg)
     lanes, replicates = grid.size, int(cfg.replicates)
@@ -215,6 +216,7 @@ def run_experiment(
     first = jnp.asarray(1, dtype=jnp.int64)
     chunk = make_chunk(setup, length, batched).lower(carry, keys, first, settings).compile()
     compile_seconds = time.perf_counter() - tic
+    startup_seconds = time.perf_counter() - entered  # validation, building, climatology, compilation
 
     writer = None
     if output is not None:
@@ -276,6 +278,7 @@ def run_experiment(
             "divergence_patience": patience,
             "interval_method": "batch means, 20 batches after burn-in, Student t 95%",
             "compile_seconds": compile_seconds,
+            "startup_seconds": startup_seconds,
             "run_seconds": run_seconds,
         }
         series = {name: np.concatenate(parts, axis=1) for name, parts in kept.items()} if kept is not None else {}

@@ -190,7 +190,8 @@ def _footer(result, path) -> list:
     batch = int(np.size(result.first_bad_cycle))
     runs = f"{batch} run{'s' if batch > 1 else ''} side by side"
     lines = [
-        f"  compile {result.compile_seconds:.1f} s, cycling {result.run_seconds:.2f} s "
+        f"  start-up {result.finish_attrs['startup_seconds']:.1f} s (compile {result.compile_seconds:.1f} s), "
+        + f"cycling {result.run_seconds:.2f} s "
         + f"({result.microseconds_per_cycle:.0f} us per cycle for {runs})"
     ]
     if path is not None:

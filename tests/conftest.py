@@ -1,8 +1,17 @@
-"""Shared test set-up: float64 JAX on the CPU before any array exists."""
+"""Shared test set-up: float64 JAX on the CPU before any array exists, and a
+compilation cache of this test session only (hermetic: nothing from earlier
+runs is reused; the suite's many identical programs compile once)."""
 
+import atexit
 import os
+import shutil
+import tempfile
 
 os.environ.setdefault("JAX_PLATFORMS", "cpu")
+if "ASSIMBENCH_COMPILE_CACHE" not in os.environ:
+    _CACHE = tempfile.mkdtemp(prefix="assimbench-test-cache-")
+    os.environ["ASSIMBENCH_COMPILE_CACHE"] = _CACHE  # subprocesses of the tests share it
+    atexit.register(shutil.rmtree, _CACHE, True)
 
 import jax  # noqa: E402
 
