@@ -188,7 +188,7 @@ def _lane_rows(result) -> list:
 
 def _footer(result, path) -> list:
     batch = int(np.size(result.first_bad_cycle))
-    runs = f"{batch} run{'s' if batch > 1 else ''} side by side"
+    runs = f"{batch} runs side by side" if batch > 1 else "1 run"
     lines = [
         f"  start-up {result.finish_attrs['startup_seconds']:.1f} s (compile {result.compile_seconds:.1f} s), "
         + f"cycling {result.run_seconds:.2f} s "
