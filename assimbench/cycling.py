@@ -128,7 +128,13 @@ def make_chunk(setup: TwinSetup, length: int, batched_settings: bool = False):
     model, filt = setup.model, setup.filter
     truth_chunk = make_truth_chunk(model, setup.operator, setup.steps_per_cycle, length)
     flow = make_flow(model.tendency, model.dt, setup.steps_per_cycle)
-    forecast_members = jax.vmap(flow, in_axes=(0, None))
+    if model.ensemble_tendency is not None:
+        columns_flow = make_flow(model.ensemble_tendency, model.dt, setup.steps_per_cycle)
+
+        def forecast_members(members, params):  # (N, n) -> (n, N) -> flow -> (N, n)
+            return columns_flow(members.T, params).T
+    else:
+        forecast_members = jax.vmap(flow, in_axes=(0, None))
 
     diagnose = make_cycle_diagnostics(setup.diagnostics, setup.operator, filt.weighted)
     catalogue = series_catalogue(setup.diagnostics, filt.members)

@@ -1,6 +1,6 @@
 """The speed suite: the package against hand-written NumPy twins of the same experiments, in one run.
 
-    python benchmarks/speed_suite.py [--repeats 3] [--json speed.json] [--quick]
+    python benchmarks/speed_suite.py [--repeats 3] [--json speed.json] [--quick] [--growth]
 
 For every case: microseconds per cycle of the package (compile excluded) and of
 the NumPy twin (benchmarks/numpy_twin.py, started from the package's own
@@ -154,12 +154,54 @@ def measure(name: str, overrides: list, cycles: int, repeats: int) -> dict:
             "flops_per_cycle": work, "package_gflops": work / p / 1e3}
 
 
+def lanes_case(cycles: int, repeats: int) -> dict:
+    """32 lanes (8 inflations x 4 seeds) of the L96 n=40, 20-member ETKF in one program: microseconds
+    per lane-cycle, against the NumPy twin's cycle (32 NumPy runs cost 32 of them)."""
+    overrides = ["filter.members=20", "lanes.filter.inflation=[1.0,1.01,1.02,1.03,1.04,1.05,1.07,1.1]",
+                 "replicates=4", f"cycles={cycles}", "burn_in=0", f"chunk_cycles={cycles}", "diagnostics=[]",
+                 "output=null"]
+    package = statistics.median(assimbench.run(overrides).microseconds_per_cycle / 32 for _ in range(repeats))
+    start = package_start(["filter.members=20", "filter.inflation=1.03"])
+    noise = np.random.default_rng(1).normal(size=(200, 40))
+    baseline = statistics.median(1e6 * _timed(lambda: numpy_run(start, noise)) / 200 for _ in range(repeats))
+    return {"case": "L96 ETKF N=20, 32 lanes", "package_us_per_cycle": package, "numpy_us_per_cycle": baseline,
+            "ratio": baseline / package}
+
+
+def exponent(sizes, times) -> float:
+    """Least-squares slope of log(time) against log(size)."""
+    return float(np.polyfit(np.log(sizes), np.log(times), 1)[0])
+
+
+def growth(repeats: int, quick: bool) -> dict:
+    """How the per-cycle cost grows with cycles, LETKF state size and ETKF members."""
+    def us(overrides, cycles):
+        common = overrides + [f"cycles={cycles}", "burn_in=0", f"chunk_cycles={min(cycles, 2000)}",
+                              "diagnostics=[]", "output=null"]
+        return statistics.median(assimbench.run(common).microseconds_per_cycle for _ in range(repeats))
+
+    cycles = [500, 2000, 8000] if quick else [1000, 4000, 16000]
+    per_cycle = [us(["filter.members=20"], k) for k in cycles]
+    sizes = [40, 400, 2000]
+    letkf = [us(["filter=letkf", "filter.members=20", f"model.size={n}"], max(20, 20000 // n // (4 if quick else 1)))
+             for n in sizes]
+    members = [10, 20, 40, 80]
+    etkf = [us([f"filter.members={m}", "filter.inflation=1.02"], 500 if quick else 2000) for m in members]
+    return {
+        "cycles": cycles, "us_per_cycle_by_cycles": per_cycle, "exponent_total_time_vs_cycles":
+            exponent(cycles, [c * t for c, t in zip(cycles, per_cycle)]),
+        "letkf_sizes": sizes, "letkf_us_per_cycle": letkf, "exponent_letkf_vs_size": exponent(sizes, letkf),
+        "etkf_members": members, "etkf_us_per_cycle": etkf, "exponent_etkf_vs_members": exponent(members, etkf),
+    }
+
+
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--json", default=None, help="also write the table as JSON here")
     parser.add_argument("--quick", action="store_true", help="one repeat, a tenth of the cycles")
     parser.add_argument("--cases", nargs="*", default=None, help="a subset of the case names")
+    parser.add_argument("--growth", action="store_true", help="also measure how cost grows (cycles, n, N)")
     args = parser.parse_args()
     repeats = 1 if args.quick else args.repeats
     peak = matmul_rate()
@@ -178,9 +220,22 @@ def main():
         print(f"{name:<24}{row['package_us_per_cycle']:>12.1f}{row['compile_seconds']:>11.2f}"
               f"{row['numpy_us_per_cycle']:>11.1f}{row['ratio']:>8.1f}{agree:>11}"
               f"{row['package_gflops']:>9.2f}{row['fraction_of_matmul_rate']:>9.1%}", flush=True)
+    if not args.cases:
+        row = lanes_case(400 if args.quick else 2000, repeats)
+        rows.append(row)
+        print(f"{row['case']:<24}{row['package_us_per_cycle']:>12.1f}{'':>11}{row['numpy_us_per_cycle']:>11.1f}"
+              f"{row['ratio']:>8.1f}   (per lane-cycle)", flush=True)
+    grown = growth(repeats, args.quick) if args.growth else None
+    if grown:
+        print(f"per-cycle us at {grown['cycles']} cycles: " + ", ".join(f"{t:.1f}" for t in grown["us_per_cycle_by_cycles"])
+              + f"; total time ~ cycles^{grown['exponent_total_time_vs_cycles']:.2f}")
+        print("LETKF us/cycle at n = 40, 400, 2000: " + ", ".join(f"{t:.0f}" for t in grown["letkf_us_per_cycle"])
+              + f"; ~ n^{grown['exponent_letkf_vs_size']:.2f}")
+        print("ETKF us/cycle at N = 10, 20, 40, 80: " + ", ".join(f"{t:.0f}" for t in grown["etkf_us_per_cycle"])
+              + f"; ~ N^{grown['exponent_etkf_vs_members']:.2f}")
     if args.json:
         with open(args.json + ".partial", "w") as handle:
-            json.dump({"matmul_flops_per_second": peak, "cases": rows}, handle, indent=2)
+            json.dump({"matmul_flops_per_second": peak, "cases": rows, "growth": grown}, handle, indent=2)
         os.replace(args.json + ".partial", args.json)
 
 

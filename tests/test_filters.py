@@ -198,6 +198,20 @@ def test_systematic_resampling_copies_each_particle_floor_or_ceil_of_n_w_times()
         assert np.all(counts >= np.floor(n * weights) - 1e-9) and np.all(counts <= np.ceil(n * weights) + 1e-9)
 
 
+def test_systematic_resampling_equals_the_binary_search_on_the_weight_cdf():
+    """The scatter-and-cumsum form gives the indices numpy.searchsorted gives for the points
+    (k + u) / N on the cumulative weights (Kitagawa 1996, the definition)."""
+    rng = np.random.default_rng(17)
+    for trial, n in enumerate((7, 100, 1000)):
+        weights = rng.dirichlet(np.ones(n) * 0.2)
+        key = jax.random.PRNGKey(100 + trial)
+        u = float(jax.random.uniform(key))
+        cdf = np.cumsum(weights)
+        cdf[-1] = 1.0
+        expected = np.minimum(np.searchsorted(cdf, (np.arange(n) + u) / n, side="right"), n - 1)
+        np.testing.assert_array_equal(np.asarray(systematic_resample(key, jnp.asarray(weights))), expected)
+
+
 def test_systematic_resampling_of_equal_weights_keeps_every_particle_once():
     for trial in range(10):
         chosen = np.asarray(systematic_resample(jax.random.PRNGKey(trial), jnp.full(64, 1 / 64)))

@@ -76,3 +76,16 @@ def test_lorenz63_stays_on_the_attractor():
 def test_lorenz96_refuses_fewer_than_four_variables():
     with pytest.raises(ValueError):
         make_lorenz96(size=3)
+
+
+def test_the_variables_first_lorenz63_tendency_is_the_same_function():
+    """The ensemble layout the forecast uses must not change the equations."""
+    from assimbench.models import lorenz63_tendency_variables_first
+
+    model = make_lorenz63()
+    params = {k: jnp.asarray(v) for k, v in model.params.items()}
+    members = jax.random.normal(jax.random.PRNGKey(4), (7, 3)) * 5.0
+    np.testing.assert_array_equal(
+        np.asarray(lorenz63_tendency_variables_first(members.T, params).T),
+        np.asarray(lorenz63_tendency(members, params)),
+    )

@@ -31,10 +31,16 @@ def systematic_resample(key, weights: jax.Array) -> jax.Array:
     Particle i is kept floor(N w_i) or ceil(N w_i) times (Kitagawa 1996).
     """
     n = weights.shape[0]
-    points = (jnp.arange(n) + jax.random.uniform(key)) / n
+    offset = jax.random.uniform(key)
     cdf = jnp.cumsum(weights)
     cdf = cdf.at[-1].set(1.0)  # round-off must not lose the last particle
-    return jnp.minimum(jnp.searchsorted(cdf, points, side="right"), n - 1)
+    # Point k = (k + u) / N goes to the first particle whose CDF exceeds it. Particle i's
+    # CDF value lies above c_i = ceil(N cdf_i - u) points, so the index of point k is the
+    # number of particles with c_i <= k: a scatter-add and a cumulative sum, which equal
+    # searchsorted(cdf, points, side="right") and cost less than its binary search here.
+    below = jnp.clip(jnp.ceil(n * cdf - offset), 0, n).astype(jnp.int32)
+    counts = jnp.zeros(n + 1, dtype=jnp.int32).at[below].add(1)
+    return jnp.minimum(jnp.cumsum(counts)[:n], n - 1)
 
 
 def effective_sample_size(log_weights: jax.Array) -> jax.Array:
@@ -58,7 +64,12 @@ def make_sir(operator, members: int) -> Filter:
         ess = effective_sample_size(log_weights)
         resample_key, jitter_key = jax.random.split(key)
         chosen = systematic_resample(resample_key, jnp.exp(log_weights))
-        noise = settings["filter"]["jitter"] * jax.random.normal(jitter_key, state.members.shape)
+        # Single-precision draws: regularisation noise whose last digits carry no meaning, and
+        # the threefry bits behind a double normal cost twice as much (measured: 3,000 normals
+        # 175 us in double, 72 us in single; the whole SIR cycle is about 340 us).
+        noise = settings["filter"]["jitter"] * jax.random.normal(
+            jitter_key, state.members.shape, dtype=jnp.float32
+        ).astype(jnp.float64)
         resample = ess < settings["filter"]["ess_threshold"] * members
         particles = jnp.where(resample, state.members[chosen] + noise, state.members)
         log_weights = jnp.where(resample, jnp.full(members, -np.log(members), dtype=jnp.float64), log_weights)
