@@ -4,6 +4,9 @@ Before Hydra starts, every job of the command (every point of a ``-m`` sweep)
 is composed and validated, so a bad value stops the whole command with one
 line on stderr and exit status 2, before anything is written.
 
+Re-run: ``assimbench --from FILE [overrides]`` runs the experiment stored in
+a result file again (its stored resolved config, then the overrides).
+
 Resume: a job whose output already holds a complete result of the same
 resolved config (the stored ``config_hash``) is skipped; a complete result
 of another config is never overwritten (exit 2); a missing or incomplete
@@ -15,6 +18,7 @@ finds the finished jobs, and the command says how many it skips.
 import hashlib
 import itertools
 import os
+import signal
 import sys
 
 import hydra
@@ -26,7 +30,7 @@ from omegaconf import DictConfig, OmegaConf
 
 from assimbench.api import config_hash, run_experiment
 from assimbench.composition import compose_config, config_dir
-from assimbench.results import stored_config_hash
+from assimbench.results import ResultFileError, read_result, stored_config_hash
 from assimbench.validation import ConfigError
 
 EXIT_BAD_INPUT = 2
@@ -144,7 +148,9 @@ def format_summary(result, path) -> str:
     """The short table printed at the end of a run: time means after burn-in with 95% intervals."""
     cfg = result.config
     model = cfg.model
-    size = model.size if model.name == "lorenz96" else 3
+    from assimbench.registry import STATE_SIZE
+
+    size = STATE_SIZE[model.name](model)
     reps = result.replicates
     members = f", {cfg.filter.members} members" if "members" in cfg.filter else ""
     head = (
@@ -208,8 +214,10 @@ class _ChunkProgress:
     def __init__(self, total: int):
         self._total = total
         self._bar = None
+        self.done = 0
 
     def __call__(self, done: int, total: int) -> None:
+        self.done = done
         if self._bar is None and sys.stderr.isatty():
             from tqdm import tqdm
 
@@ -222,12 +230,33 @@ class _ChunkProgress:
             self._bar.close()
 
 
+class Stopped(BaseException):
+    """SIGTERM or SIGINT arrived; raised between chunks so the writer can close cleanly."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+
+def _raise_stopped(signum, frame):
+    raise Stopped(signum)
+
+
+def _catch_stop_signals() -> None:
+    for signum in (signal.SIGTERM, signal.SIGINT):
+        try:
+            signal.signal(signum, _raise_stopped)
+        except ValueError:  # not the main thread (some launchers): keep the default behaviour
+            pass
+
+
 @hydra.main(config_path=config_dir(), config_name="config", version_base="1.3")
 def _hydra_app(cfg: DictConfig) -> None:
     output = cfg.output
     if output is not None and not os.path.isabs(output):
         output = os.path.join(HydraConfig.get().runtime.output_dir, output)
     progress = _ChunkProgress(int(cfg.cycles))
+    _catch_stop_signals()
     try:
         if output is not None and _already_done(cfg, output):
             print(f"assimbench: skipped: {output} is complete for this config", flush=True)
@@ -235,14 +264,67 @@ def _hydra_app(cfg: DictConfig) -> None:
         result = run_experiment(cfg, output=output, progress=progress, keep_series=False)
     except ConfigError as err:
         sys.exit(_fail(str(err)))
+    except Stopped as stop:
+        name = signal.Signals(stop.signum).name
+        kept = (f"the completed chunks ({progress.done} of {cfg.cycles} cycles) are kept in {output}.partial, "
+                "marked incomplete" if output is not None else "no file was asked for")
+        print(f"assimbench: stopped by {name}; {kept}; run the same command again to start it anew",
+              file=sys.stderr, flush=True)
+        sys.exit(128 + stop.signum)
     finally:
         progress.close()
     print(format_summary(result, result.path), flush=True)
 
 
+def _override_value(value) -> str:
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return repr(value)
+    if isinstance(value, (list, tuple)):
+        return "[" + ",".join(_override_value(v) for v in value) + "]"
+    return "'" + str(value).replace("\\", "\\\\").replace("'", "\\'") + "'"
+
+
+def overrides_from_config(config: dict, prefix: str = "") -> list[str]:
+    """Overrides that compose back to ``config`` (a stored, resolved config): the group
+    choices first, then every leaf as key=value."""
+    out = []
+    if not prefix:
+        out += [f"model={config['model']['name']}", f"filter={config['filter']['name']}"]
+    for key, value in config.items():
+        full = f"{prefix}{key}"
+        if isinstance(value, dict):
+            out += overrides_from_config(value, full + ".")
+        else:
+            out.append(f"{full}={_override_value(value)}")
+    return out
+
+
+def _from_file(argv: list[str]) -> list[str]:
+    """``--from FILE`` -> the overrides of the config stored in FILE, followed by the other arguments."""
+    at = argv.index("--from")
+    if at + 1 >= len(argv):
+        raise ConfigError("--from needs the path of a result file")
+    path = argv[at + 1]
+    try:
+        stored = read_result(path)
+    except ResultFileError as err:
+        raise ConfigError(str(err)) from None
+    rest = argv[:at] + argv[at + 2 :]
+    return overrides_from_config(stored.config) + rest
+
+
 def main(argv=None) -> int:
     """Entry point of the ``assimbench`` console script."""
     argv = list(sys.argv[1:] if argv is None else argv)
+    if "--from" in argv:
+        try:
+            argv = _from_file(argv)
+        except ConfigError as err:
+            return _fail(str(err))
     informational = {"--help", "-h", "--hydra-help", "--info", "-i", "--cfg", "-c", "--shell-completion", "-sc"}
     if not informational.intersection(argv):
         try:

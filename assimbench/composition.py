@@ -41,8 +41,14 @@ def config_dir() -> str:
 
 def group_options(group: str) -> list[str]:
     """The selectable options of a config group (YAML files of its folder)."""
+    from assimbench.plugins import install
+    from assimbench.registry import FILTERS, MODELS, PLUGINS
+
+    install()
     folder = _config_root().joinpath(group)
-    return sorted(p.name[:-5] for p in folder.iterdir() if p.name.endswith(".yaml"))
+    options = {p.name[:-5] for p in folder.iterdir() if p.name.endswith(".yaml")}
+    table = {"filter": FILTERS, "model": MODELS}.get(group, {})
+    return sorted(options | {name for name in PLUGINS if name in table})
 
 
 def _split(override: str):

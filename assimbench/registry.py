@@ -98,5 +98,6 @@ FILTERS = {
 
 # Static traits validation needs before anything is built (the built Filter
 # carries the same facts: ``weighted``).
-LOCALIZED = ("letkf", "ensrf")  # their radius needs a distance between grid points and observations
-WEIGHTED = ("sir",)  # weighted ensembles
+LOCALIZED = ["letkf", "ensrf"]  # their radius needs a distance between grid points and observations
+WEIGHTED = ["sir"]  # weighted ensembles
+PLUGINS = []  # names added by installed packages' entry points (assimbench/plugins.py)

@@ -238,12 +238,24 @@ class ExperimentConfig:
     lanes: LanesConfig = field(default_factory=LanesConfig)
 
 
+MODEL_SCHEMAS = {"lorenz63": Lorenz63Config, "lorenz96": Lorenz96Config}
+
+
 def register_schemas() -> None:
-    """Store the schemas under names the YAML options extend (idempotent)."""
+    """Store the schemas under names the YAML options extend (idempotent). Plugins
+    (assimbench/plugins.py) have no YAML option: their schema is the option itself."""
+    from assimbench.plugins import install
+    from assimbench.registry import PLUGINS
+
+    install()
     store = ConfigStore.instance()
     store.store(name=SCHEMA_PREFIX + "experiment", node=ExperimentConfig)
-    store.store(group="model", name=SCHEMA_PREFIX + "lorenz63", node=Lorenz63Config)
-    store.store(group="model", name=SCHEMA_PREFIX + "lorenz96", node=Lorenz96Config)
+    for name, schema in MODEL_SCHEMAS.items():
+        store.store(group="model", name=SCHEMA_PREFIX + name, node=schema)
+        if name in PLUGINS:
+            store.store(group="model", name=name, node=schema)
     store.store(group="observation", name=SCHEMA_PREFIX + "observation", node=ObservationConfig)
     for name, schema in FILTER_SCHEMAS.items():
         store.store(group="filter", name=SCHEMA_PREFIX + name, node=schema)
+        if name in PLUGINS:
+            store.store(group="filter", name=name, node=schema)

@@ -10,7 +10,8 @@ replicates the mean of the replicate means has SE = sqrt(sum_r SE_r^2) / R and
 R (B - 1) degrees of freedom.
 
 The accumulator is streamed chunk by chunk, so memory does not grow with the
-number of cycles.
+number of cycles; its sums run strictly in cycle order, so they do not depend
+on where the chunks were cut.
 """
 
 import numpy as np
@@ -44,8 +45,12 @@ class TimeMeans:
             return
         batch = np.searchsorted(self.edges, position[keep], side="right") - 1
         sums = self.sums.setdefault(name, np.zeros((self.replicates, self.batches)))
-        for r in range(self.replicates):  # replicates, not cycles: a handful of bincounts per chunk
-            sums[r] += np.bincount(batch, weights=values[r, keep], minlength=self.batches)
+        kept = values[:, keep]
+        # Strictly sequential sums in cycle order (cumsum continues from the running sum),
+        # so the result is the same to the bit however the cycles were cut into chunks.
+        for b in np.unique(batch):
+            segment = kept[:, batch == b]
+            sums[:, b] = np.cumsum(np.concatenate([sums[:, b : b + 1], segment], axis=1), axis=1)[:, -1]
 
     def totals(self, name: str) -> np.ndarray:
         """Summed counts after burn-in, (replicates, k)."""
