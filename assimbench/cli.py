@@ -273,6 +273,12 @@ def _hydra_app(cfg: DictConfig) -> None:
         sys.exit(128 + stop.signum)
     finally:
         progress.close()
+        # The result is complete (or the job ended): a late signal must not report a stop.
+        for signum in (signal.SIGTERM, signal.SIGINT):
+            try:
+                signal.signal(signum, signal.SIG_DFL if signum == signal.SIGTERM else signal.default_int_handler)
+            except ValueError:
+                pass
     print(format_summary(result, result.path), flush=True)
 
 
