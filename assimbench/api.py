@@ -147,8 +147,8 @@ def config_hash(cfg: DictConfig) -> str:
     return hashlib.sha256(json.dumps(plain, sort_keys=True).encode()).hexdigest()
 
 
-def provenance(cfg: DictConfig) -> dict:
-    """Root attributes that make a file reproducible: config, versions, seeds, time."""
+def provenance_versions() -> dict:
+    """Versions of the package, Python and the libraries, and the machine kind."""
     from assimbench import __version__
 
     versions = {}
@@ -158,12 +158,19 @@ def provenance(cfg: DictConfig) -> dict:
         except metadata.PackageNotFoundError:
             versions[name] = "not installed"
     return {
-        "config": OmegaConf.to_yaml(cfg, resolve=True),
-        "config_hash": config_hash(cfg),
         "assimbench_version": __version__,
         "python_version": platform.python_version(),
         "library_versions": " ".join(f"{k}={v}" for k, v in versions.items()),
         "machine": platform.machine(),
+    }
+
+
+def provenance(cfg: DictConfig) -> dict:
+    """Root attributes that make a file reproducible: config, versions, seeds, time."""
+    return {
+        "config": OmegaConf.to_yaml(cfg, resolve=True),
+        "config_hash": config_hash(cfg),
+        **provenance_versions(),
         "seed": int(cfg.seed),
         "replicates": int(cfg.replicates),
         "replicate_keys": "fold_in(PRNGKey(seed), r) for r = 0 .. replicates-1",

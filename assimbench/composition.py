@@ -78,12 +78,12 @@ def _all_keys(cfg: DictConfig, prefix: str = "") -> list[str]:
     return keys
 
 
-def _compose(overrides) -> DictConfig:
+def _compose(overrides, config_name: str = "config") -> DictConfig:
     register_schemas()
     if GlobalHydra.instance().is_initialized():
         GlobalHydra.instance().clear()
     with initialize_config_dir(config_dir=config_dir(), version_base="1.3", job_name="assimbench"):
-        return compose(config_name="config", overrides=list(overrides))
+        return compose(config_name=config_name, overrides=list(overrides))
 
 
 def _first_line(err: BaseException) -> str:
@@ -131,7 +131,7 @@ def _lane_key_error(key: str, known: list, values: str) -> ConfigError:
     return ConfigError(f"lanes.{key} is not a lane key{hint}")
 
 
-def compose_config(overrides=(), validate: bool = True) -> DictConfig:
+def compose_config(overrides=(), validate: bool = True, config_name: str = "config") -> DictConfig:
     """Compose ``configs/config.yaml`` with Hydra-style ``overrides`` (e.g. "filter.members=10").
 
     Returns the typed DictConfig; with ``validate`` every value range and
@@ -140,12 +140,17 @@ def compose_config(overrides=(), validate: bool = True) -> DictConfig:
     overrides = list(overrides)
     _check_group_choices(overrides)
     try:
-        cfg = _compose(overrides)
+        cfg = _compose(overrides, config_name)
         OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
     except (HydraException, OmegaConfBaseException) as err:
         raise _translate(err, overrides) from None
     if validate:
-        validate_config(cfg)
+        if config_name == "config":
+            validate_config(cfg)
+        else:
+            from assimbench.validation import check_lyapunov
+
+            check_lyapunov(cfg, MODELS)
     return cfg
 
 

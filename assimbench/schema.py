@@ -238,6 +238,28 @@ class ExperimentConfig:
     lanes: LanesConfig = field(default_factory=LanesConfig)
 
 
+@dataclass
+class LyapunovConfig:
+    """assimbench-lyapunov: the spectrum of ``model`` (see assimbench/lyapunov.py).
+
+    count: exponents to compute (null: all); reorthonormalise: RK4 steps between QR
+    factorisations; spinup_time: model time for the state, then again for the
+    tangent vectors; time: averaging window (model time); blocks: points of the
+    convergence record; observation.interval: the analysis interval the doubling
+    time is also expressed in; seed: of the first state and tangent vectors.
+    """
+
+    model: Any = MISSING
+    observation: ObservationConfig = field(default_factory=ObservationConfig)
+    count: int | None = None
+    reorthonormalise: int = 10
+    spinup_time: float = 20.0
+    time: float = 500.0
+    blocks: int = 100
+    seed: int = 0
+    output: str | None = "lyapunov.h5"
+
+
 MODEL_SCHEMAS = {"lorenz63": Lorenz63Config, "lorenz96": Lorenz96Config}
 
 
@@ -250,6 +272,7 @@ def register_schemas() -> None:
     install()
     store = ConfigStore.instance()
     store.store(name=SCHEMA_PREFIX + "experiment", node=ExperimentConfig)
+    store.store(name=SCHEMA_PREFIX + "lyapunov", node=LyapunovConfig)
     for name, schema in MODEL_SCHEMAS.items():
         store.store(group="model", name=SCHEMA_PREFIX + name, node=schema)
         if name in PLUGINS:

@@ -165,3 +165,30 @@ def check_config(cfg: DictConfig, model_names, filter_names) -> None:
     output = cfg.output
     if output is not None and (not isinstance(output, str) or not output.strip()):
         _fail("output", output, "a file path, or null for no file")
+
+
+def check_lyapunov(cfg: DictConfig, model_names) -> None:
+    """Ranges of an assimbench-lyapunov config."""
+    from assimbench.registry import STATE_SIZE
+
+    model_name = _get(cfg, "model.name")
+    if model_name not in model_names:
+        _fail("model.name", model_name, "choose the model with model=" + "|".join(sorted(model_names)))
+    dt = _real(cfg, "model.dt", "a finite time step > 0", minimum=0.0)
+    if model_name == "lorenz96":
+        _integer(cfg, "model.size", 4, "an integer >= 4")
+    size = STATE_SIZE[model_name](cfg.model)
+    if cfg.count is not None:
+        count = _integer(cfg, "count", 1, f"an integer from 1 to the state size {size}, or null for all")
+        if count > size:
+            _fail("count", count, f"an integer from 1 to the state size {size}, or null for all")
+    every = _integer(cfg, "reorthonormalise", 1, "an integer >= 1 (RK4 steps between QR factorisations)")
+    _real(cfg, "spinup_time", "a finite model time >= 0", minimum=0.0, strict=False)
+    time = _real(cfg, "time", "a finite model time > 0", minimum=0.0)
+    blocks = _integer(cfg, "blocks", 1, "an integer >= 1")
+    if blocks * every * dt > time * (1 + 1e-9):
+        _fail("blocks", blocks, f"at most time / (reorthonormalise x model.dt) = {int(time / (every * dt))}")
+    _real(cfg, "observation.interval", "a finite model time > 0", minimum=0.0)
+    seed = _integer(cfg, "seed", 0, "an integer from 0 to 2**32 - 1")
+    if seed >= 2**32:
+        _fail("seed", seed, "an integer from 0 to 2**32 - 1")
