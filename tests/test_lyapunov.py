@@ -43,6 +43,9 @@ def test_lorenz96_forty_variables():
     assert 1.5 < spectrum.exponents[0] < 1.9
     assert 12 <= spectrum.positive_count <= 14
     assert 26.0 < spectrum.kaplan_yorke_dimension < 28.5
+    # Errors double in about 0.42 time units, about 2 days at 0.05 = 6 hours (Lorenz & Emanuel 1998,
+    # J. Atmos. Sci. 55; from memory).
+    assert 0.35 < spectrum.doubling_time < 0.47
     assert np.all(np.diff(spectrum.exponents) <= 0)
 
 
