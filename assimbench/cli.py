@@ -103,15 +103,26 @@ def finished_hashes(folder: str) -> set:
     return hashes
 
 
-def preflight(argv: list[str]) -> None:
-    """Compose and validate every job of ``argv``; raise ConfigError on the first bad one.
-    For a multirun, say how many jobs already have a complete result (they are skipped)."""
+INFORMATIONAL = {"--help", "-h", "--hydra-help", "--info", "-i", "--cfg", "-c", "--shell-completion", "-sc"}
+
+
+def compose_jobs(argv: list[str], config_name: str = "config") -> tuple:
+    """(parsed arguments, composed and validated config of every job of ``argv``);
+    ConfigError on the first bad one. Shared by the package's Hydra commands."""
     from hydra._internal.utils import get_args_parser
 
     args = get_args_parser().parse_args(argv)
-    if args.config_name not in (None, "config") or args.config_path or args.config_dir:
+    if args.config_name not in (None, config_name) or args.config_path or args.config_dir:
         raise ConfigError("--config-name/--config-path/--config-dir are not supported; use overrides")
-    jobs = [compose_config(job) for job in expand_jobs(list(args.overrides), bool(args.multirun))]
+    jobs = [compose_config(job, config_name=config_name)
+            for job in expand_jobs(list(args.overrides), bool(args.multirun))]
+    return args, jobs
+
+
+def preflight(argv: list[str]) -> None:
+    """Compose and validate every job of ``argv``; raise ConfigError on the first bad one.
+    For a multirun, say how many jobs already have a complete result (they are skipped)."""
+    args, jobs = compose_jobs(argv)
     if args.multirun:
         folder = _sweep_dir(list(args.overrides))
         done = finished_hashes(folder) if os.path.isdir(folder) and "${" not in folder else set()
@@ -331,8 +342,7 @@ def main(argv=None) -> int:
             argv = _from_file(argv)
         except ConfigError as err:
             return _fail(str(err))
-    informational = {"--help", "-h", "--hydra-help", "--info", "-i", "--cfg", "-c", "--shell-completion", "-sc"}
-    if not informational.intersection(argv):
+    if not INFORMATIONAL.intersection(argv):
         try:
             preflight(argv)
         except ConfigError as err:

@@ -18,21 +18,23 @@ except that the additive piece still draws its noise: with a stochastic filter
 additive_std=0 (the statistics are the same).
 """
 
+import dataclasses
 import itertools
 from typing import NamedTuple
 
 import numpy as np
 from omegaconf import DictConfig, OmegaConf
 
+from assimbench.schema import FilterLanes, LanesConfig, ModelLanes, ObservationLanes
 from assimbench.validation import ConfigError
 
-# Component keys that are traced floats, hence allowed as lanes.
+# Component keys that are traced floats, hence allowed as lanes: the fields of the
+# lane schemas (schema.LanesConfig), so the two can never disagree.
 LANE_KEYS = {
-    "model": ("forcing", "sigma", "rho", "beta"),
-    "observation": ("error_std",),
-    "filter": ("inflation", "additive_std", "rtpp", "rtps", "radius", "b_scale", "jitter", "ess_threshold"),
+    section: tuple(f.name for f in dataclasses.fields(node))
+    for section, node in (("model", ModelLanes), ("observation", ObservationLanes), ("filter", FilterLanes))
 }
-TOP_LANE_KEYS = ("initial_spread",)
+TOP_LANE_KEYS = tuple(f.name for f in dataclasses.fields(LanesConfig) if f.name not in LANE_KEYS)
 MAX_LANES = 4096
 # Filters whose static parts are estimated from the model's climatology: a lane
 # over a model parameter would leave them describing another model.

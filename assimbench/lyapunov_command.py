@@ -25,8 +25,8 @@ from hydra.core.hydra_config import HydraConfig
 from omegaconf import DictConfig, OmegaConf
 
 from assimbench.api import provenance_versions
-from assimbench.cli import EXIT_BAD_INPUT, expand_jobs
-from assimbench.composition import compose_config, config_dir
+from assimbench.cli import EXIT_BAD_INPUT, INFORMATIONAL, compose_jobs
+from assimbench.composition import config_dir
 from assimbench.lyapunov import lyapunov_spectrum
 from assimbench.registry import MODELS
 from assimbench.results import PARTIAL_SUFFIX
@@ -104,15 +104,10 @@ def _app(cfg: DictConfig) -> None:
 
 def main(argv=None) -> int:
     """Entry point of the ``assimbench-lyapunov`` console script."""
-    from hydra._internal.utils import get_args_parser
-
     argv = list(sys.argv[1:] if argv is None else argv)
-    informational = {"--help", "-h", "--hydra-help", "--info", "-i", "--cfg", "-c", "--shell-completion", "-sc"}
-    if not informational.intersection(argv):
+    if not INFORMATIONAL.intersection(argv):
         try:
-            args = get_args_parser().parse_args(argv)
-            for job in expand_jobs(list(args.overrides), bool(args.multirun)):
-                compose_config(job, config_name="lyapunov")
+            compose_jobs(argv, config_name="lyapunov")
         except ConfigError as err:
             print(f"assimbench-lyapunov: error: {err}", file=sys.stderr)
             return EXIT_BAD_INPUT

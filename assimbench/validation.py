@@ -113,17 +113,13 @@ def _check_diagnostics(cfg) -> None:
             _fail("diagnostics", name, f"filter {cfg.filter.name} can give only " + ", ".join(available))
 
 
-def check_config(cfg: DictConfig, model_names, filter_names) -> None:
-    """Raise ConfigError for the first value or combination that is not allowed."""
+def _check_model(cfg, model_names) -> tuple:
+    """The model node's name, step and parameters; returns (name, dt, state size)."""
     from assimbench.registry import STATE_SIZE
 
     model_name = _get(cfg, "model.name")
     if model_name not in model_names:
         _fail("model.name", model_name, "choose the model with model=" + "|".join(sorted(model_names)))
-    filter_name = _get(cfg, "filter.name")
-    if filter_name not in filter_names:
-        _fail("filter.name", filter_name, "choose the filter with filter=" + "|".join(sorted(filter_names)))
-
     dt = _real(cfg, "model.dt", "a finite time step > 0", minimum=0.0)
     if model_name == "lorenz96":
         _integer(cfg, "model.size", 4, "an integer >= 4")
@@ -131,7 +127,21 @@ def check_config(cfg: DictConfig, model_names, filter_names) -> None:
     if model_name == "lorenz63":
         for key in ("model.sigma", "model.rho", "model.beta"):
             _real(cfg, key, "a finite number")
-    size = STATE_SIZE[model_name](cfg.model)
+    return model_name, dt, STATE_SIZE[model_name](cfg.model)
+
+
+def _check_seed(cfg) -> None:
+    seed = _integer(cfg, "seed", 0, "an integer from 0 to 2**32 - 1")
+    if seed >= 2**32:
+        _fail("seed", seed, "an integer from 0 to 2**32 - 1")
+
+
+def check_config(cfg: DictConfig, model_names, filter_names) -> None:
+    """Raise ConfigError for the first value or combination that is not allowed."""
+    model_name, dt, size = _check_model(cfg, model_names)
+    filter_name = _get(cfg, "filter.name")
+    if filter_name not in filter_names:
+        _fail("filter.name", filter_name, "choose the filter with filter=" + "|".join(sorted(filter_names)))
 
     interval = _real(cfg, "observation.interval", "a finite model time > 0", minimum=0.0)
     if steps_per_cycle(interval, dt) == 0:
@@ -152,9 +162,7 @@ def check_config(cfg: DictConfig, model_names, filter_names) -> None:
     burn_in = _integer(cfg, "burn_in", 0, f"an integer from 0 to cycles - 1 = {cycles - 1}")
     if burn_in >= cycles:
         _fail("burn_in", burn_in, f"an integer from 0 to cycles - 1 = {cycles - 1}")
-    seed = _integer(cfg, "seed", 0, "an integer from 0 to 2**32 - 1")
-    if seed >= 2**32:
-        _fail("seed", seed, "an integer from 0 to 2**32 - 1")
+    _check_seed(cfg)
     _integer(cfg, "replicates", 1, "an integer >= 1")
     _integer(cfg, "chunk_cycles", 1, "an integer >= 1")
     _real(cfg, "initial_spread", "a finite standard deviation >= 0", minimum=0.0, strict=False)
@@ -169,15 +177,7 @@ def check_config(cfg: DictConfig, model_names, filter_names) -> None:
 
 def check_lyapunov(cfg: DictConfig, model_names) -> None:
     """Ranges of an assimbench-lyapunov config."""
-    from assimbench.registry import STATE_SIZE
-
-    model_name = _get(cfg, "model.name")
-    if model_name not in model_names:
-        _fail("model.name", model_name, "choose the model with model=" + "|".join(sorted(model_names)))
-    dt = _real(cfg, "model.dt", "a finite time step > 0", minimum=0.0)
-    if model_name == "lorenz96":
-        _integer(cfg, "model.size", 4, "an integer >= 4")
-    size = STATE_SIZE[model_name](cfg.model)
+    _, dt, size = _check_model(cfg, model_names)
     if cfg.count is not None:
         count = _integer(cfg, "count", 1, f"an integer from 1 to the state size {size}, or null for all")
         if count > size:
@@ -189,6 +189,4 @@ def check_lyapunov(cfg: DictConfig, model_names) -> None:
     if blocks * every * dt > time * (1 + 1e-9):
         _fail("blocks", blocks, f"at most time / (reorthonormalise x model.dt) = {int(time / (every * dt))}")
     _real(cfg, "observation.interval", "a finite model time > 0", minimum=0.0)
-    seed = _integer(cfg, "seed", 0, "an integer from 0 to 2**32 - 1")
-    if seed >= 2**32:
-        _fail("seed", seed, "an integer from 0 to 2**32 - 1")
+    _check_seed(cfg)
