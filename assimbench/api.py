@@ -27,7 +27,7 @@ from assimbench.cycling import FIELDS, TwinSetup, make_chunk, make_start, replic
 from assimbench.diagnostics import available_groups, series_catalogue
 from assimbench.lanes import hull_config, lane_config, lane_grid
 from assimbench.observations import every_kth
-from assimbench.registry import FILTERS, MODELS
+from assimbench.registry import FILTERS, MODELS, forecast_model
 from assimbench.results import Layout, ResultWriter
 from assimbench.summaries import TimeMeans, update_lost_runs
 from assimbench.validation import steps_per_cycle
@@ -82,24 +82,32 @@ class RunResult:
 def build(cfg: DictConfig):
     """Turn a validated config into the static setup and the dynamic settings pytree."""
     model = MODELS[cfg.model.name](cfg.model)
-    operator = every_kth(model.size, int(cfg.observation.stride), str(cfg.observation.transform))
-    filt, filter_settings = FILTERS[cfg.filter.name](cfg.filter, model, operator)
+    forecaster = forecast_model(cfg.forecast_model, model)
+    operator = every_kth(model.resolved_size, int(cfg.observation.stride), str(cfg.observation.transform))
+    filt, filter_settings = FILTERS[cfg.filter.name](cfg.filter, forecaster, operator)
     available = available_groups(filt.members, filt.weighted)
     groups = available if cfg.diagnostics is None else tuple(g for g in available if g in cfg.diagnostics)
     store = cfg.store
     wanted = {name: bool(store[name]) for name in FIELDS if name != "analysis_ensemble"}
     wanted["analysis_ensemble"] = store.ensemble_every > 0
     fields = tuple(name for name in FIELDS if wanted[name])
+    interval = float(cfg.observation.interval)
+    imperfect = forecaster is not model
     setup = TwinSetup(
         model=model,
         operator=operator,
         filter=filt,
-        steps_per_cycle=steps_per_cycle(float(cfg.observation.interval), model.dt),
+        steps_per_cycle=steps_per_cycle(interval, model.dt),
         diagnostics=groups,
         fields=fields,
+        forecast_model=forecaster if imperfect else None,
+        forecast_steps=steps_per_cycle(interval, forecaster.dt) if imperfect else 0,
+        truth_noise=float(cfg.truth_noise_std) > 0.0,
     )
     settings = {
         "model": model.params,
+        "forecast_model": forecaster.params,
+        "truth_noise_std": float(cfg.truth_noise_std),
         "observation": {"error_std": float(cfg.observation.error_std)},
         "filter": filter_settings,
         "initial_spread": float(cfg.initial_spread),
@@ -125,7 +133,7 @@ def layouts_of(setup: TwinSetup) -> tuple:
     }
     layouts.update({name: field_layouts[name] for name in setup.fields})
     coordinates = {
-        "variable": np.arange(setup.model.size),
+        "variable": np.arange(setup.model.resolved_size),
         "station": setup.operator.indices,
         "member": np.arange(members),
         "rank": np.arange(members + 1),
@@ -135,9 +143,9 @@ def layouts_of(setup: TwinSetup) -> tuple:
 
 
 def climate_std(model) -> float:
-    """Climatological standard deviation of one variable (mean over variables), for the divergence rule."""
+    """Climatological standard deviation of one resolved variable (mean over them), for the divergence rule."""
     _, covariance = climatology(model, samples=4000)
-    return float(np.sqrt(np.mean(np.diag(covariance))))
+    return float(np.sqrt(np.mean(np.diag(covariance)[: model.resolved_size])))
 
 
 def config_hash(cfg: DictConfig) -> str:
@@ -200,7 +208,8 @@ def run_experiment(
         setup, _ = build(hull_config(cfg, grid))
         lane_cfgs = [lane_config(cfg, grid, lane) for lane in range(lanes)]
         built = [build(one) for one in lane_cfgs]
-        settings = jax.tree.map(lambda *leaves: jnp.repeat(jnp.stack(leaves), replicates), *(b[1] for b in built))
+        settings = jax.tree.map(lambda *leaves: jnp.repeat(jnp.stack(leaves), replicates, axis=0),
+                                *(b[1] for b in built))
         thresholds = [_threshold(cfg, setup, b[0].model) for b in built]
     else:
         setup, settings = build(cfg)

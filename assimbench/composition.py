@@ -22,7 +22,7 @@ from assimbench.registry import FILTERS, MODELS
 from assimbench.schema import SCHEMA_PREFIX, register_schemas
 from assimbench.validation import ConfigError, check_config
 
-GROUPS = ("model", "observation", "filter")
+GROUPS = ("model", "forecast_model", "observation", "filter")
 
 
 def _config_root():
@@ -47,7 +47,7 @@ def group_options(group: str) -> list[str]:
     install()
     folder = _config_root().joinpath(group)
     options = {p.name[:-5] for p in folder.iterdir() if p.name.endswith(".yaml")}
-    table = {"filter": FILTERS, "model": MODELS}.get(group, {})
+    table = {"filter": FILTERS, "model": MODELS, "forecast_model": MODELS}.get(group, {})
     return sorted(options | {name for name in PLUGINS if name in table})
 
 

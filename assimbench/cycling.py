@@ -3,7 +3,10 @@
 Cycle k (k = 1, 2, ...) ends at model time k * interval. In one chunk of L
 cycles the truth is integrated and observed first (one scan), then the filter
 cycles over those observations (a second scan): forecast every member from the
-previous analysis (a vmap of the RK4 flow), then analyse with y_k.
+previous analysis with the forecast model (by default the truth model), then
+analyse with y_k. Scores compare the truth's resolved variables (all of a
+single-scale model; the slow ones of a two-scale truth) with the same
+variables of the members.
 
 Randomness is keyed by the replicate key and the absolute cycle number only,
 never by the chunk, so results do not depend on the chunk length:
@@ -14,13 +17,15 @@ never by the chunk, so results do not depend on the chunk length:
     ensemble       fold_in(r, 2)   initial ensemble
     filter         fold_in(fold_in(r, 3), k)   filter randomness at cycle k (0 for init)
     diagnostics    fold_in(fold_in(r, 4), k)   noise of the observation rank histogram
+    model error    fold_in(fold_in(r, 5), k)   additive noise of the truth (when switched on)
 
 Truth and observations depend on (seed, replicate, model, observation
 settings) alone, so every filter and every setting run on a seed sees the same
 data: differences between them are paired.
 
 The initial ensemble is the spun-up truth at time 0 plus independent
-N(0, initial_spread^2) noise on every variable of every member.
+N(0, initial_spread^2) noise on every variable of every member (scaled per
+variable by the forecast model's spread_scale where it has one).
 """
 
 from typing import NamedTuple
@@ -34,7 +39,7 @@ from assimbench.diagnostics import (
     series_catalogue,
 )
 from assimbench.filters import Filter
-from assimbench.integrators import make_flow
+from assimbench.integrators import make_model_flow
 from assimbench.models import Model
 from assimbench.observations import ObservationOperator
 
@@ -42,8 +47,12 @@ from assimbench.observations import ObservationOperator
 class TwinSetup(NamedTuple):
     """The static parts of an experiment (they fix shapes and code paths).
 
+    model: the truth model; steps_per_cycle: its steps per analysis interval;
     diagnostics: optional diagnostic groups (see diagnostics.OPTIONAL);
-    fields: optional stored fields, a subset of FIELDS.
+    fields: optional stored fields, a subset of FIELDS; forecast_model: the
+    model the filter forecasts with (None: the truth model, a perfect-model
+    experiment) and forecast_steps its steps per interval; truth_noise: the
+    truth gets additive model error, N(0, truth_noise_std^2 I) per interval.
     """
 
     model: Model
@@ -52,6 +61,17 @@ class TwinSetup(NamedTuple):
     steps_per_cycle: int
     diagnostics: tuple = ()
     fields: tuple = ()
+    forecast_model: Model | None = None
+    forecast_steps: int = 0
+    truth_noise: bool = False
+
+    @property
+    def forecaster(self) -> Model:
+        return self.model if self.forecast_model is None else self.forecast_model
+
+    @property
+    def forecaster_steps(self) -> int:
+        return self.steps_per_cycle if self.forecast_model is None else self.forecast_steps
 
 
 # Optional per-cycle fields a run can store besides the diagnostics.
@@ -61,7 +81,7 @@ FIELDS = ("truth", "observations", "forecast_mean", "analysis_mean", "analysis_e
 class CycleCarry(NamedTuple):
     """What one chunk hands to the next, per replicate."""
 
-    truth: jax.Array  # (n,)
+    truth: jax.Array  # (n,) every variable of the truth model
     filter_state: tuple  # the filter's NamedTuple state
 
 
@@ -77,37 +97,47 @@ def make_start(setup: TwinSetup, batched_settings: bool = False):
     With ``batched_settings`` every leaf of ``settings`` has a leading batch
     axis matching ``keys`` (lanes x replicates flattened); otherwise one
     setting serves the whole batch."""
-    model = setup.model
-    spinup = make_flow(model.tendency, model.dt, max(1, round(model.spinup_time / model.dt)))
+    model, forecaster = setup.model, setup.forecaster
+    spinup = make_model_flow(model, max(1, round(model.spinup_time / model.dt)))
 
     def start_one(rkey, settings):
         truth = spinup(model.first_guess(jax.random.fold_in(rkey, 0), settings["model"]), settings["model"])
-        noise = jax.random.normal(jax.random.fold_in(rkey, 2), (setup.filter.members, model.size))
-        ensemble = truth + settings["initial_spread"] * noise
+        noise = jax.random.normal(jax.random.fold_in(rkey, 2), (setup.filter.members, forecaster.size))
+        if forecaster.spread_scale is not None:
+            noise = noise * jnp.asarray(forecaster.spread_scale)
+        # A reduced forecast model starts from the truth's resolved variables.
+        ensemble = truth[: forecaster.size] + settings["initial_spread"] * noise
         filter_key = jax.random.fold_in(jax.random.fold_in(rkey, 3), 0)
         return CycleCarry(truth=truth, filter_state=setup.filter.init(filter_key, ensemble, settings))
 
     return jax.jit(jax.vmap(start_one, in_axes=(0, 0 if batched_settings else None)))
 
 
-def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycle: int, length: int):
+def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycle: int, length: int,
+                     truth_noise: bool = False):
     """Return ``truth_chunk(truth, rkey, first_cycle, settings) -> (truth_end, truths, ys)``.
 
     Integrates the truth over ``length`` cycles from ``truth`` (n,) and
     observes it: y_k = h(x_k) + error_std * e_k, e_k ~ N(0, I) drawn from
-    fold_in(fold_in(rkey, 1), k), one draw per grid point (so nested
-    networks share the noise of their common stations). truths: (length, n); ys: (length, p).
-    Depends on nothing of the filter.
+    fold_in(fold_in(rkey, 1), k), one draw per resolved grid point (so nested
+    networks share the noise of their common stations). With ``truth_noise``
+    the truth carries additive model error, x_k = M(x_{k-1}) + q eta_k with
+    q = settings["truth_noise_std"] and eta_k ~ N(0, I) from
+    fold_in(fold_in(rkey, 5), k). truths: (length, r), the r resolved
+    variables (the ones scored); ys: (length, p). Depends on nothing of the filter.
     """
-    flow = make_flow(model.tendency, model.dt, steps_per_cycle)
+    flow = make_model_flow(model, steps_per_cycle)
+    resolved = model.resolved_size
 
     def truth_chunk(truth, rkey, first_cycle, settings):
-        obs_key = jax.random.fold_in(rkey, 1)
+        obs_key, noise_key = jax.random.fold_in(rkey, 1), jax.random.fold_in(rkey, 5)
 
         def step(x, k):
             x = flow(x, settings["model"])
-            noise = operator.standard_noise(jax.random.fold_in(obs_key, k), model.size)
-            return x, (x, operator(x) + settings["observation"]["error_std"] * noise)
+            if truth_noise:
+                x = x + settings["truth_noise_std"] * jax.random.normal(jax.random.fold_in(noise_key, k), x.shape)
+            noise = operator.standard_noise(jax.random.fold_in(obs_key, k), resolved)
+            return x, (x[:resolved], operator(x) + settings["observation"]["error_std"] * noise)
 
         truth_end, (truths, ys) = jax.lax.scan(step, truth, first_cycle + jnp.arange(length))
         return truth_end, truths, ys
@@ -125,16 +155,14 @@ def make_chunk(setup: TwinSetup, length: int, batched_settings: bool = False):
     ``batched_settings`` the settings carry a leading batch axis like ``keys``
     (lanes; see :func:`make_start`).
     """
-    model, filt = setup.model, setup.filter
-    truth_chunk = make_truth_chunk(model, setup.operator, setup.steps_per_cycle, length)
-    flow = make_flow(model.tendency, model.dt, setup.steps_per_cycle)
-    if model.ensemble_tendency is not None:
-        columns_flow = make_flow(model.ensemble_tendency, model.dt, setup.steps_per_cycle)
-
-        def forecast_members(members, params):  # (N, n) -> (n, N) -> flow -> (N, n)
-            return columns_flow(members.T, params).T
-    else:
-        forecast_members = jax.vmap(flow, in_axes=(0, None))
+    model, filt, forecaster = setup.model, setup.filter, setup.forecaster
+    truth_chunk = make_truth_chunk(model, setup.operator, setup.steps_per_cycle, length, setup.truth_noise)
+    forecast_members = make_model_flow(forecaster, setup.forecaster_steps, ensemble=True)
+    resolved = model.resolved_size
+    if forecaster.size == resolved:
+        scored = lambda state: state
+    else:  # a forecast model with unresolved variables of its own: score the resolved ones
+        scored = lambda state: state._replace(members=state.members[..., :resolved])
 
     diagnose = make_cycle_diagnostics(setup.diagnostics, setup.operator, filt.weighted)
     catalogue = series_catalogue(setup.diagnostics, filt.members)
@@ -149,20 +177,20 @@ def make_chunk(setup: TwinSetup, length: int, batched_settings: bool = False):
         def cycle(state, inputs):
             (k, rank_noise), truth, y = inputs
             if filt.runs_model:
-                state = state._replace(members=forecast_members(state.members, settings["model"]))
+                state = state._replace(members=forecast_members(state.members, settings["forecast_model"]))
             analysed, info = filt.analyse(jax.random.fold_in(filter_key, k), state, y, settings)
-            out = diagnose(rank_noise, truth, y, state, analysed, info, settings)
+            out = diagnose(rank_noise, truth, y, scored(state), scored(analysed), info, settings)
             # One packed vector per cycle instead of one stacked output per series:
             # each scan output costs a small update op per cycle.
             out = {"_scalars": jnp.stack([out.pop(name).astype(jnp.float64) for name in scalar_names]), **out}
             if "rank_truth_forecast" in out:
                 out["_ranks"] = jnp.stack([out.pop("rank_truth_forecast"), out.pop("rank_observation_forecast")])
             if "forecast_mean" in fields:
-                out["forecast_mean"] = ensemble_mean_and_spread(state)[0]
+                out["forecast_mean"] = ensemble_mean_and_spread(scored(state))[0]
             if "analysis_mean" in fields:
-                out["analysis_mean"] = ensemble_mean_and_spread(analysed)[0]
+                out["analysis_mean"] = ensemble_mean_and_spread(scored(analysed))[0]
             if "analysis_ensemble" in fields:
-                out["analysis_ensemble"] = analysed.members
+                out["analysis_ensemble"] = scored(analysed).members
             return analysed, out
 
         cycles = first_cycle + jnp.arange(length)

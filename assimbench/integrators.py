@@ -70,3 +70,26 @@ def make_flow(tendency: Tendency, dt: float, steps: int, tableau: ButcherTableau
         return jax.lax.fori_loop(0, steps, body, x)
 
     return flow
+
+
+def model_step(model) -> Callable:
+    """``step(x, params)``: one step of ``model`` of size model.dt, its own scheme if it has one
+    (``model.stepper``), otherwise RK4 on its tendency."""
+    if model.stepper is not None:
+        return model.stepper
+    return lambda x, params: rk_step(RK4, model.tendency, x, params, model.dt)
+
+
+def make_model_flow(model, steps: int, ensemble: bool = False):
+    """``flow(x, params)``: ``steps`` steps of ``model`` (see :func:`model_step`).
+
+    With ``ensemble`` the flow takes members (N, n); a model with an
+    ``ensemble_tendency`` then integrates them variables-first, (n, N), the
+    layout that vectorises better for it."""
+    if steps < 1:
+        raise ValueError(f"steps must be >= 1, got {steps}")
+    if ensemble and model.ensemble_tendency is not None and model.stepper is None:
+        columns = make_flow(model.ensemble_tendency, model.dt, steps)
+        return lambda members, params: columns(members.T, params).T
+    step = model_step(model)
+    return lambda x, params: jax.lax.fori_loop(0, steps, lambda _, state: step(state, params), x)

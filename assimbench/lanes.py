@@ -32,7 +32,8 @@ from assimbench.validation import ConfigError
 # lane schemas (schema.LanesConfig), so the two can never disagree.
 LANE_KEYS = {
     section: tuple(f.name for f in dataclasses.fields(node))
-    for section, node in (("model", ModelLanes), ("observation", ObservationLanes), ("filter", FilterLanes))
+    for section, node in (("model", ModelLanes), ("forecast_model", ModelLanes), ("observation", ObservationLanes),
+                          ("filter", FilterLanes))
 }
 TOP_LANE_KEYS = tuple(f.name for f in dataclasses.fields(LanesConfig) if f.name not in LANE_KEYS)
 MAX_LANES = 4096
@@ -134,10 +135,11 @@ def check_lanes(cfg: DictConfig, check_one) -> None:
                     f"lanes.{key} is not allowed: the {what} has no setting {name} "
                     f"(its lane settings: {allowed})"
                 )
-            if section == "model" and cfg.filter.name in CLIMATOLOGY_FILTERS:
+            forecaster = "model" if cfg.forecast_model.name == "same" else "forecast_model"
+            if section == forecaster and cfg.filter.name in CLIMATOLOGY_FILTERS:
                 raise ConfigError(
                     f"lanes.{key} is not allowed with filter={cfg.filter.name}: its static parts come from "
-                    f"the model's climatology; sweep model settings with --multirun"
+                    f"the forecast model's climatology; sweep model settings with --multirun"
                 )
     grid = lane_grid(cfg)
     if grid.size > MAX_LANES:

@@ -1,6 +1,6 @@
 """Lyapunov spectrum of a model by the QR method (Benettin et al. 1980; Shimada & Nagashima 1979).
 
-The state x is integrated with the model's RK4 step; m tangent vectors Q
+The state x is integrated with the model's step (RK4, or its own scheme); m tangent vectors Q
 (n, m) are propagated by the derivative of that same step map (JAX forward
 mode, ``jax.jvp`` vmapped over the columns), and every ``reorthonormalise``
 steps re-orthonormalised by a QR factorisation Q R = M Q. After a spin-up
@@ -26,7 +26,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from assimbench.integrators import RK4, rk_step
+from assimbench.integrators import model_step
 from assimbench.models import Model
 
 
@@ -94,7 +94,8 @@ def lyapunov_spectrum(
     m = n if count is None else int(count)
     dt = model.dt
     params = jax.tree.map(lambda v: jnp.asarray(v, dtype=jnp.float64), params)
-    step = lambda x: rk_step(RK4, model.tendency, x, params, dt)
+    one_step = model_step(model)
+    step = lambda x: one_step(x, params)
     per_block = max(1, round(time / dt / reorthonormalise / blocks))
     spin_steps = max(1, round(spinup_time / dt))
     key = jax.random.PRNGKey(0) if key is None else key

@@ -24,13 +24,16 @@ class ObservationOperator(NamedTuple):
 
     indices: (p,) observed variable indices (static, NumPy); positions: (p,)
     grid positions of the observations, in grid units, for localization;
-    transform: a key of TRANSFORMS applied elementwise after the selection.
+    transform: a key of TRANSFORMS applied elementwise after the selection;
+    limit: only the first ``limit`` variables are observable (a two-scale
+    model's slow variables come first; None: all).
     """
 
     indices: np.ndarray
     positions: np.ndarray
     stride: int
     transform: str = "identity"
+    limit: int | None = None
 
     @property
     def size(self) -> int:
@@ -52,16 +55,18 @@ class ObservationOperator(NamedTuple):
     def __call__(self, x: jax.Array) -> jax.Array:
         """y = f(H x) for a selection H and elementwise f; x: (..., n) -> (..., p)."""
         # A strided slice, not a gather: XLA fuses it into its neighbours.
-        return TRANSFORMS[self.transform](x[..., :: self.stride])
+        return TRANSFORMS[self.transform](x[..., : self.limit : self.stride])
 
 
 def every_kth(state_size: int, stride: int, transform: str = "identity") -> ObservationOperator:
-    """Observe variables 0, stride, 2 stride, ... of a ``state_size`` state."""
+    """Observe variables 0, stride, 2 stride, ... below ``state_size`` (the observable, resolved
+    variables; a state may carry more after them)."""
     if not 1 <= stride <= state_size:
         raise ValueError(f"stride must be in [1, {state_size}], got {stride}")
     if transform not in TRANSFORMS:
         raise ValueError(f"transform must be one of {sorted(TRANSFORMS)}, got {transform!r}")
     indices = np.arange(0, state_size, stride)
     return ObservationOperator(
-        indices=indices, positions=indices.astype(np.float64), stride=int(stride), transform=transform
+        indices=indices, positions=indices.astype(np.float64), stride=int(stride), transform=transform,
+        limit=int(state_size),
     )

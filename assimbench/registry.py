@@ -14,7 +14,7 @@ from assimbench.filters.letkf import make_letkf
 from assimbench.filters.reference import make_climatology, make_free_run
 from assimbench.filters.sir import make_sir
 from assimbench.filters.threedvar import make_3dvar
-from assimbench.models import make_lorenz63, make_lorenz96
+from assimbench.models import make_kuramoto_sivashinsky, make_lorenz63, make_lorenz96, make_lorenz96_two_scale
 
 
 def _lorenz63(node):
@@ -25,10 +25,60 @@ def _lorenz96(node):
     return make_lorenz96(size=node.size, forcing=node.forcing, dt=node.dt)
 
 
-MODELS = {"lorenz63": _lorenz63, "lorenz96": _lorenz96}
+def _lorenz96_two_scale(node):
+    return make_lorenz96_two_scale(
+        slow=int(node.slow), fast_per_slow=int(node.fast_per_slow), forcing=node.forcing, coupling=node.coupling,
+        time_scale=node.time_scale, space_scale=node.space_scale, dt=node.dt,
+    )
+
+
+def _kuramoto_sivashinsky(node):
+    return make_kuramoto_sivashinsky(size=int(node.size), length=float(node.length), dt=float(node.dt))
+
+
+MODELS = {
+    "lorenz63": _lorenz63,
+    "lorenz96": _lorenz96,
+    "lorenz96_two_scale": _lorenz96_two_scale,
+    "kuramoto_sivashinsky": _kuramoto_sivashinsky,
+}
 
 # State size from a config node without building the model (validation needs it).
-STATE_SIZE = {"lorenz63": lambda node: 3, "lorenz96": lambda node: int(node.size)}
+STATE_SIZE = {
+    "lorenz63": lambda node: 3,
+    "lorenz96": lambda node: int(node.size),
+    "lorenz96_two_scale": lambda node: int(node.slow) * (int(node.fast_per_slow) + 1),
+    "kuramoto_sivashinsky": lambda node: int(node.size),
+}
+# Resolved (observed and scored) size where it is not the whole state.
+RESOLVED_SIZE = {"lorenz96_two_scale": lambda node: int(node.slow)}
+
+
+def model_sizes(node) -> tuple:
+    """(state size, resolved size) of a model config node, without building the model."""
+    size = STATE_SIZE[node.name](node)
+    return size, RESOLVED_SIZE[node.name](node) if node.name in RESOLVED_SIZE else size
+
+
+def _closure(node, truth):
+    from assimbench.closure import make_lorenz96_closure
+
+    return make_lorenz96_closure(truth, float(node.forcing), int(node.degree), float(node.dt))
+
+
+def forecast_model(node, truth):
+    """The forecast model of config node ``forecast_model`` for the truth model ``truth``."""
+    if node.name == "same":
+        return truth
+    if node.name in FORECAST_ONLY:
+        return FORECAST_ONLY[node.name](node, truth)
+    return MODELS[node.name](node)
+
+
+# Forecast models that are not models of their own: built from the truth.
+FORECAST_ONLY = {"same": None, "lorenz96_closure": _closure}
+# Truth models whose resolved variables are a Lorenz-96 ring (a closure can be fitted to them).
+LORENZ96_RINGS = ("lorenz96", "lorenz96_two_scale")
 
 
 def _inflation(node):

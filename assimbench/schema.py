@@ -37,6 +37,50 @@ class Lorenz96Config:
 
 
 @dataclass
+class Lorenz96TwoScaleConfig:
+    """Two-scale Lorenz-96 (Lorenz 1996): ``slow`` variables X_k, each coupled to ``fast_per_slow``
+    fast Y_{j,k}; coupling h, time_scale c, space_scale b; only the slow variables are observed."""
+
+    name: str = "lorenz96_two_scale"
+    slow: int = 36
+    fast_per_slow: int = 10
+    forcing: float = 10.0
+    coupling: float = 1.0
+    time_scale: float = 10.0
+    space_scale: float = 10.0
+    dt: float = 0.005
+
+
+@dataclass
+class KuramotoSivashinskyConfig:
+    """Kuramoto-Sivashinsky u_t = -u u_x - u_xx - u_xxxx on a periodic domain of ``length``,
+    ``size`` grid points, ETDRK4 step ``dt``."""
+
+    name: str = "kuramoto_sivashinsky"
+    size: int = 64
+    length: float = 22.0
+    dt: float = 0.25
+
+
+@dataclass
+class SameModelConfig:
+    """Forecast with the truth model itself (a perfect-model experiment)."""
+
+    name: str = "same"
+
+
+@dataclass
+class Lorenz96ClosureConfig:
+    """Forecast with single-scale Lorenz-96 of the truth's resolved size plus a polynomial
+    closure g(X) of ``degree``, fitted by least squares to a truth run (assimbench/closure.py)."""
+
+    name: str = "lorenz96_closure"
+    forcing: float = 10.0
+    degree: int = 3
+    dt: float = 0.005
+
+
+@dataclass
 class ObservationConfig:
     """Observe every ``stride``-th variable every ``interval`` model time units.
 
@@ -164,6 +208,9 @@ class ModelLanes:
     sigma: list[float] | None = None
     rho: list[float] | None = None
     beta: list[float] | None = None
+    coupling: list[float] | None = None
+    time_scale: list[float] | None = None
+    space_scale: list[float] | None = None
 
 
 @dataclass
@@ -198,6 +245,7 @@ class LanesConfig:
     """
 
     model: ModelLanes = field(default_factory=ModelLanes)
+    forecast_model: ModelLanes = field(default_factory=ModelLanes)
     observation: ObservationLanes = field(default_factory=ObservationLanes)
     filter: FilterLanes = field(default_factory=FilterLanes)
     initial_spread: list[float] | None = None
@@ -218,10 +266,16 @@ class ExperimentConfig:
     a value is not finite, or when its analysis RMSE stays above
     divergence_factor x the climatological standard deviation for
     divergence_patience consecutive cycles; lanes: settings run side by
-    side as one vectorised batch (LanesConfig).
+    side as one vectorised batch (LanesConfig); forecast_model: the model the
+    filter forecasts with (same: the truth model); truth_noise_std: standard
+    deviation of additive model error added to every truth variable after
+    each analysis interval (0: none), a model error the forecast model does
+    not know.
     """
 
     model: Any = MISSING
+    forecast_model: Any = MISSING
+    truth_noise_std: float = 0.0
     observation: ObservationConfig = field(default_factory=ObservationConfig)
     filter: Any = MISSING
     cycles: int = 2000
@@ -260,7 +314,14 @@ class LyapunovConfig:
     output: str | None = "lyapunov.h5"
 
 
-MODEL_SCHEMAS = {"lorenz63": Lorenz63Config, "lorenz96": Lorenz96Config}
+MODEL_SCHEMAS = {
+    "lorenz63": Lorenz63Config,
+    "lorenz96": Lorenz96Config,
+    "lorenz96_two_scale": Lorenz96TwoScaleConfig,
+    "kuramoto_sivashinsky": KuramotoSivashinskyConfig,
+}
+# Forecast models: any model, the truth itself, or a reduced model fitted to the truth.
+FORECAST_ONLY_SCHEMAS = {"same": SameModelConfig, "lorenz96_closure": Lorenz96ClosureConfig}
 
 
 def register_schemas() -> None:
@@ -274,9 +335,12 @@ def register_schemas() -> None:
     store.store(name=SCHEMA_PREFIX + "experiment", node=ExperimentConfig)
     store.store(name=SCHEMA_PREFIX + "lyapunov", node=LyapunovConfig)
     for name, schema in MODEL_SCHEMAS.items():
-        store.store(group="model", name=SCHEMA_PREFIX + name, node=schema)
-        if name in PLUGINS:
-            store.store(group="model", name=name, node=schema)
+        for group in ("model", "forecast_model"):
+            store.store(group=group, name=SCHEMA_PREFIX + name, node=schema)
+            if name in PLUGINS:
+                store.store(group=group, name=name, node=schema)
+    for name, schema in FORECAST_ONLY_SCHEMAS.items():
+        store.store(group="forecast_model", name=SCHEMA_PREFIX + name, node=schema)
     store.store(group="observation", name=SCHEMA_PREFIX + "observation", node=ObservationConfig)
     for name, schema in FILTER_SCHEMAS.items():
         store.store(group="filter", name=SCHEMA_PREFIX + name, node=schema)

@@ -54,9 +54,10 @@ def _in_range(cfg, key, low, high, allowed):
         _fail(key, value, allowed)
 
 
-def _check_filter(cfg, model_name: str) -> None:
-    """Ranges of the filter keys present in this filter's schema, and the radius rule."""
-    from assimbench.registry import LOCALIZED, MODELS
+def _check_filter(cfg, model_name: str, ring: bool) -> None:
+    """Ranges of the filter keys present in this filter's schema, and the radius rule
+    (``model_name``, ``ring``: the forecast model's name and whether its variables sit on a ring)."""
+    from assimbench.registry import LOCALIZED
 
     node = cfg.filter
     keys = set(node.keys())
@@ -72,7 +73,6 @@ def _check_filter(cfg, model_name: str) -> None:
         _in_range(cfg, "filter.rtps", 0.0, 2.0, "a coefficient from 0 (off) to 2")
     if "radius" in keys and node.radius is not None:
         _real(cfg, "filter.radius", "a finite half-width > 0 in grid units, or null for no localization", minimum=0.0)
-        ring = MODELS[model_name](cfg.model).ring
         if node.name in LOCALIZED and not ring:
             _fail(
                 "filter.radius",
@@ -113,21 +113,70 @@ def _check_diagnostics(cfg) -> None:
             _fail("diagnostics", name, f"filter {cfg.filter.name} can give only " + ", ".join(available))
 
 
-def _check_model(cfg, model_names) -> tuple:
-    """The model node's name, step and parameters; returns (name, dt, state size)."""
-    from assimbench.registry import STATE_SIZE
+def _check_model(cfg, model_names, prefix: str = "model") -> tuple:
+    """The model node's name, step and parameters; returns (name, dt, state size, resolved size)."""
+    from assimbench.registry import model_sizes
 
-    model_name = _get(cfg, "model.name")
+    model_name = _get(cfg, f"{prefix}.name")
     if model_name not in model_names:
-        _fail("model.name", model_name, "choose the model with model=" + "|".join(sorted(model_names)))
-    dt = _real(cfg, "model.dt", "a finite time step > 0", minimum=0.0)
+        _fail(f"{prefix}.name", model_name, f"choose the model with {prefix}=" + "|".join(sorted(model_names)))
+    dt = _real(cfg, f"{prefix}.dt", "a finite time step > 0", minimum=0.0)
     if model_name == "lorenz96":
-        _integer(cfg, "model.size", 4, "an integer >= 4")
-        _real(cfg, "model.forcing", "a finite number")
+        _integer(cfg, f"{prefix}.size", 4, "an integer >= 4")
+        _real(cfg, f"{prefix}.forcing", "a finite number")
     if model_name == "lorenz63":
-        for key in ("model.sigma", "model.rho", "model.beta"):
-            _real(cfg, key, "a finite number")
-    return model_name, dt, STATE_SIZE[model_name](cfg.model)
+        for key in ("sigma", "rho", "beta"):
+            _real(cfg, f"{prefix}.{key}", "a finite number")
+    if model_name == "lorenz96_two_scale":
+        _integer(cfg, f"{prefix}.slow", 4, "an integer >= 4")
+        _integer(cfg, f"{prefix}.fast_per_slow", 1, "an integer >= 1")
+        for key in ("forcing", "coupling", "time_scale", "space_scale"):
+            _real(cfg, f"{prefix}.{key}", "a finite number")
+        _real(cfg, f"{prefix}.space_scale", "a finite number > 0", minimum=0.0)
+    if model_name == "kuramoto_sivashinsky":
+        _integer(cfg, f"{prefix}.size", 8, "an integer >= 8")
+        _real(cfg, f"{prefix}.length", "a finite domain length > 0", minimum=0.0)
+    return (model_name, dt, *model_sizes(_get(cfg, prefix)))
+
+
+def _check_forecast_model(cfg, model_names, truth: tuple, interval: float) -> tuple:
+    """The forecast model's rules; returns (state size, ring) of the model the filter works with.
+
+    It must resolve exactly the truth's resolved variables, and carry either
+    only those or the whole truth state (its initial ensemble is the truth's
+    state, or its resolved part, plus noise)."""
+    from assimbench.registry import FORECAST_ONLY, LORENZ96_RINGS, MODELS
+
+    truth_name, _, truth_size, truth_resolved = truth
+    node = cfg.forecast_model
+    name = node.name
+    choices = sorted(set(model_names) | set(FORECAST_ONLY))
+    if name not in choices:
+        _fail("forecast_model.name", name, "choose the forecast model with forecast_model=" + "|".join(choices))
+    if name == "same":
+        return truth_size, MODELS[truth_name](cfg.model).ring
+    if name == "lorenz96_closure":
+        if truth_name not in LORENZ96_RINGS:
+            _fail("forecast_model", name, "a truth model whose resolved variables are a Lorenz-96 ring "
+                  f"(model={'|'.join(LORENZ96_RINGS)}), not {truth_name}")
+        dt = _real(cfg, "forecast_model.dt", "a finite time step > 0", minimum=0.0)
+        _real(cfg, "forecast_model.forcing", "a finite number")
+        _integer(cfg, "forecast_model.degree", 0, "an integer from 0 to 6")
+        if node.degree > 6:
+            _fail("forecast_model.degree", node.degree, "an integer from 0 to 6")
+        size = resolved = truth_resolved
+        ring = True
+    else:
+        _, dt, size, resolved = _check_model(cfg, model_names, "forecast_model")
+        ring = MODELS[name](node).ring
+    if resolved != truth_resolved or size not in (truth_size, truth_resolved):
+        _fail("forecast_model", name,
+              f"a forecast model whose state is the truth's {truth_resolved} resolved variables"
+              + (f" (or all its {truth_size})" if truth_size != truth_resolved else "")
+              + f"; this one has {size} variables, {resolved} of them resolved")
+    if steps_per_cycle(interval, dt) == 0:
+        _fail("observation.interval", interval, f"a whole multiple (>= 1) of forecast_model.dt={dt}")
+    return size, ring
 
 
 def _check_seed(cfg) -> None:
@@ -138,7 +187,8 @@ def _check_seed(cfg) -> None:
 
 def check_config(cfg: DictConfig, model_names, filter_names) -> None:
     """Raise ConfigError for the first value or combination that is not allowed."""
-    model_name, dt, size = _check_model(cfg, model_names)
+    truth = _check_model(cfg, model_names)
+    model_name, dt, _, size = truth
     filter_name = _get(cfg, "filter.name")
     if filter_name not in filter_names:
         _fail("filter.name", filter_name, "choose the filter with filter=" + "|".join(sorted(filter_names)))
@@ -146,9 +196,9 @@ def check_config(cfg: DictConfig, model_names, filter_names) -> None:
     interval = _real(cfg, "observation.interval", "a finite model time > 0", minimum=0.0)
     if steps_per_cycle(interval, dt) == 0:
         _fail("observation.interval", interval, f"a whole multiple (>= 1) of model.dt={dt}")
-    _integer(cfg, "observation.stride", 1, f"an integer from 1 to the state size {size}")
+    _integer(cfg, "observation.stride", 1, f"an integer from 1 to the observable state size {size}")
     if cfg.observation.stride > size:
-        _fail("observation.stride", cfg.observation.stride, f"an integer from 1 to the state size {size}")
+        _fail("observation.stride", cfg.observation.stride, f"an integer from 1 to the observable state size {size}")
     _real(cfg, "observation.error_std", "a finite standard deviation > 0", minimum=0.0)
 
     from assimbench.observations import TRANSFORMS
@@ -156,7 +206,11 @@ def check_config(cfg: DictConfig, model_names, filter_names) -> None:
     transform = cfg.observation.transform
     if transform not in TRANSFORMS:
         _fail("observation.transform", transform, "one of " + ", ".join(TRANSFORMS))
-    _check_filter(cfg, model_name)
+    _, ring = _check_forecast_model(cfg, model_names, truth, interval)
+    forecaster = model_name if cfg.forecast_model.name == "same" else cfg.forecast_model.name
+    _check_filter(cfg, forecaster, ring)
+    _real(cfg, "truth_noise_std", "a finite standard deviation >= 0 (0 = a deterministic truth)",
+          minimum=0.0, strict=False)
 
     cycles = _integer(cfg, "cycles", 1, "an integer >= 1")
     burn_in = _integer(cfg, "burn_in", 0, f"an integer from 0 to cycles - 1 = {cycles - 1}")
@@ -177,7 +231,7 @@ def check_config(cfg: DictConfig, model_names, filter_names) -> None:
 
 def check_lyapunov(cfg: DictConfig, model_names) -> None:
     """Ranges of an assimbench-lyapunov config."""
-    _, dt, size = _check_model(cfg, model_names)
+    _, dt, size, _ = _check_model(cfg, model_names)
     if cfg.count is not None:
         count = _integer(cfg, "count", 1, f"an integer from 1 to the state size {size}, or null for all")
         if count > size:

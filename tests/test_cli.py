@@ -73,6 +73,21 @@ BAD_INPUT = [
     (["lanes.filter.members=[10,20]"], ["lanes.filter.members", "--multirun", "filter.members=10,20"]),
     (["lanes.filter.inflation=[1.1,0.5]"], ["lanes.filter.inflation=0.5", ">= 1"]),
     (["lanes.filter.radius=[2.0]"], ["lanes.filter.radius", "no setting radius"]),
+    (["forecast_model=nowhere"], ["forecast_model=nowhere", "lorenz96_closure", "same"]),
+    (["forecast_model=lorenz96", "forecast_model.size=30"], ["forecast_model", "truth's 40 resolved", "30"]),
+    (["forecast_model=lorenz63"], ["forecast_model", "truth's 40 resolved", "3 variables"]),
+    (["model=lorenz96_two_scale", "forecast_model=lorenz96"], ["forecast_model", "36 resolved", "or all its 396"]),
+    (["model=lorenz63", "forecast_model=lorenz96_closure"], ["forecast_model", "Lorenz-96 ring", "lorenz63"]),
+    (["forecast_model=lorenz96", "forecast_model.dt=0.02"], ["observation.interval", "forecast_model.dt=0.02"]),
+    (["model=lorenz96_two_scale", "forecast_model=lorenz96_closure", "forecast_model.degree=9"],
+     ["forecast_model.degree=9", "0 to 6"]),
+    (["model=lorenz96_two_scale", "filter=letkf"], ["filter.radius", "null", "lorenz96_two_scale"]),
+    (["model=lorenz96_two_scale", "model.slow=3"], ["model.slow=3", ">= 4"]),
+    (["model=kuramoto_sivashinsky", "model.length=0"], ["model.length", "> 0"]),
+    (["truth_noise_std=-1"], ["truth_noise_std", ">= 0"]),
+    (["lanes.forecast_model.forcing=[7,8]"], ["lanes.forecast_model.forcing", "forecast_model same", "none"]),
+    (["forecast_model=lorenz96", "filter=3dvar", "lanes.forecast_model.forcing=[7,8]"],
+     ["lanes.forecast_model.forcing", "3dvar", "climatology"]),
 ]
 
 
