@@ -27,7 +27,7 @@ from assimbench.cycling import FIELDS, TwinSetup, make_chunk, make_start, replic
 from assimbench.diagnostics import available_groups, series_catalogue
 from assimbench.lanes import hull_config, lane_config, lane_grid
 from assimbench.observations import every_kth
-from assimbench.registry import FILTERS, MODELS, forecast_model
+from assimbench.registry import FILTERS, MODELS, NEEDS_INTERVAL, forecast_model
 from assimbench.results import Layout, ResultWriter
 from assimbench.summaries import TimeMeans, update_lost_runs
 from assimbench.validation import steps_per_cycle
@@ -84,14 +84,15 @@ def build(cfg: DictConfig):
     model = MODELS[cfg.model.name](cfg.model)
     forecaster = forecast_model(cfg.forecast_model, model)
     operator = every_kth(model.resolved_size, int(cfg.observation.stride), str(cfg.observation.transform))
-    filt, filter_settings = FILTERS[cfg.filter.name](cfg.filter, forecaster, operator)
-    available = available_groups(filt.members, filt.weighted)
+    interval = float(cfg.observation.interval)
+    extra = {"steps_per_interval": steps_per_cycle(interval, forecaster.dt)} if cfg.filter.name in NEEDS_INTERVAL else {}
+    filt, filter_settings = FILTERS[cfg.filter.name](cfg.filter, forecaster, operator, **extra)
+    available = available_groups(filt.members, filt.weighted, filt.reports_inflation)
     groups = available if cfg.diagnostics is None else tuple(g for g in available if g in cfg.diagnostics)
     store = cfg.store
     wanted = {name: bool(store[name]) for name in FIELDS if name != "analysis_ensemble"}
     wanted["analysis_ensemble"] = store.ensemble_every > 0
     fields = tuple(name for name in FIELDS if wanted[name])
-    interval = float(cfg.observation.interval)
     imperfect = forecaster is not model
     setup = TwinSetup(
         model=model,

@@ -159,13 +159,16 @@ def format_summary(result, path) -> str:
     """The short table printed at the end of a run: time means after burn-in with 95% intervals."""
     cfg = result.config
     model = cfg.model
-    from assimbench.registry import STATE_SIZE
+    from assimbench.registry import model_sizes
 
-    size = STATE_SIZE[model.name](model)
+    size, resolved = model_sizes(model)
+    shape = f"n={size}" if size == resolved else f"n={size}, {resolved} resolved"
+    forecast = cfg.get("forecast_model", {}).get("name", "same")
+    forecast = "" if forecast == "same" else f", forecast model {forecast}"
     reps = result.replicates
     members = f", {cfg.filter.members} members" if "members" in cfg.filter else ""
     head = (
-        f"assimbench  {model.name} (n={size})  {cfg.filter.name}{members}  "
+        f"assimbench  {model.name} ({shape}{forecast})  {cfg.filter.name}{members}  "
         f"{reps} replicate{'s' if reps > 1 else ''} x {cfg.cycles} cycles (burn-in {cfg.burn_in})"
     )
     if result.lanes:

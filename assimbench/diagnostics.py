@@ -21,7 +21,7 @@ import jax
 import jax.numpy as jnp
 
 # Optional groups of series; the four RMSE/spread series are always stored.
-OPTIONAL = ("spread_skill", "crps", "rank_histogram", "innovation", "desroziers", "ess", "increment")
+OPTIONAL = ("spread_skill", "crps", "rank_histogram", "innovation", "desroziers", "ess", "increment", "inflation")
 
 
 class Series(NamedTuple):
@@ -61,17 +61,20 @@ def series_catalogue(groups, members: int) -> dict:
         out["desroziers_total"] = Series("mean over stations of d_ob d_ob (estimates H B H^T + R)", "observation units^2")
     if "ess" in groups:
         out["ess"] = Series("effective sample size 1 / sum(w^2) after the weight update", "members")
+    if "inflation" in groups:
+        out["inflation"] = Series("anomaly inflation factor the analysis used (adaptive) or implied (EnKF-N)", "1")
     if "increment" in groups:
         out["increment_norm"] = Series("root mean square over variables of the analysis increment of the mean", "state units")
     return out
 
 
-def available_groups(members: int, weighted: bool) -> tuple:
+def available_groups(members: int, weighted: bool, reports_inflation: bool = False) -> tuple:
     """The optional groups a filter of this kind can give."""
     if members == 1:
         return ("desroziers", "increment")
     groups = ["spread_skill", "crps", "innovation", "desroziers", "increment"]
     groups += ["ess"] if weighted else ["rank_histogram"]
+    groups += ["inflation"] if reports_inflation else []
     return tuple(g for g in OPTIONAL if g in groups)
 
 
@@ -202,6 +205,8 @@ def make_cycle_diagnostics(groups, operator, weighted: bool):
             out["desroziers_total"] = jnp.mean(d_ob * d_ob)
         if "ess" in groups:
             out["ess"] = info["ess"]
+        if "inflation" in groups:
+            out["inflation"] = info["inflation"]
         if "increment" in groups:
             out["increment_norm"] = rmse(mean_a, mean_f)
         return out

@@ -28,7 +28,7 @@ from assimbench.api import provenance_versions
 from assimbench.cli import EXIT_BAD_INPUT, INFORMATIONAL, compose_jobs
 from assimbench.composition import config_dir
 from assimbench.lyapunov import lyapunov_spectrum
-from assimbench.registry import MODELS
+from assimbench.registry import MODELS, STATE_SIZE
 from assimbench.results import PARTIAL_SUFFIX
 from assimbench.validation import ConfigError
 
@@ -75,7 +75,8 @@ def format_spectrum(spectrum, cfg: DictConfig, path) -> str:
     labels = [str(i + 1) for i in range(n)] if n <= 8 else [str(i + 1) for i in range(5)] + [str(n - 1), str(n)]
     change = spectrum.drift.max()
     lines = [
-        f"assimbench-lyapunov  {cfg.model.name} (n={n}), averaged over {cfg.time:g} model time units",
+        f"assimbench-lyapunov  {cfg.model.name} (n={STATE_SIZE[cfg.model.name](cfg.model)}), {n} exponents "
+        f"averaged over {cfg.time:g} model time units",
         "  " + "  ".join(f"l{label}={value:+.4f}" for label, value in zip(labels, shown)),
         f"  sum {spectrum.exponents.sum():+.4f}   positive {spectrum.positive_count}   "
         f"Kaplan-Yorke dimension {spectrum.kaplan_yorke_dimension:.3f}",

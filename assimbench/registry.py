@@ -8,8 +8,10 @@ floats that is traced, so sweeps over them need no recompile).
 
 from assimbench.climatology import climatology
 from assimbench.filters.enkf import make_enkf
+from assimbench.filters.enkfn import make_enkfn
 from assimbench.filters.ensrf import make_ensrf
 from assimbench.filters.etkf import make_etkf
+from assimbench.filters.fourdvar import make_4dvar
 from assimbench.filters.letkf import make_letkf
 from assimbench.filters.reference import make_climatology, make_free_run
 from assimbench.filters.sir import make_sir
@@ -94,9 +96,22 @@ def _radius(node):
     return None if node.radius is None else float(node.radius)
 
 
+def _adaptive(node, values):
+    """Whether the adaptive factor is on, with its traced settings added to ``values``."""
+    adaptive = bool(node.get("adaptive", False))
+    if adaptive:
+        values.update({key: float(node[key]) for key in ("adaptive_std", "adaptive_min", "adaptive_max")})
+    return adaptive
+
+
 def _etkf(node, model, operator):
     values, pieces = _inflation(node)
-    return make_etkf(operator, int(node.members), pieces), values
+    return make_etkf(operator, int(node.members), pieces, _adaptive(node, values)), values
+
+
+def _enkfn(node, model, operator):
+    values, pieces = _inflation(node)
+    return make_enkfn(operator, int(node.members), pieces, int(node.prior_extra_count)), values
 
 
 def _enkf(node, model, operator):
@@ -110,7 +125,8 @@ def _localized(make):
     def build(node, model, operator):
         values, pieces = _inflation(node)
         radius = _radius(node)
-        filt = make(model, operator, int(node.members), radius, pieces)
+        extra = {"adaptive": _adaptive(node, values)} if "adaptive" in node else {}
+        filt = make(model, operator, int(node.members), radius, pieces, **extra)
         return filt, {**values, "radius": radius if radius is not None else 0.0}
 
     return build
@@ -119,6 +135,13 @@ def _localized(make):
 def _3dvar(node, model, operator):
     _, covariance = climatology(model)
     return make_3dvar(operator, covariance, int(node.iterations)), {"b_scale": float(node.b_scale)}
+
+
+def _4dvar(node, model, operator, steps_per_interval):
+    _, covariance = climatology(model)
+    filt = make_4dvar(model, operator, covariance, int(node.window), int(node.iterations),
+                      int(node.inner_iterations), steps_per_interval)
+    return filt, {"b_scale": float(node.b_scale)}
 
 
 def _sir(node, model, operator):
@@ -141,6 +164,8 @@ FILTERS = {
     "letkf": _localized(make_letkf),
     "ensrf": _localized(make_ensrf),
     "3dvar": _3dvar,
+    "4dvar": _4dvar,
+    "enkfn": _enkfn,
     "sir": _sir,
     "free": _free,
     "climatology": _climatology,
@@ -150,4 +175,7 @@ FILTERS = {
 # carries the same facts: ``weighted``).
 LOCALIZED = ["letkf", "ensrf"]  # their radius needs a distance between grid points and observations
 WEIGHTED = ["sir"]  # weighted ensembles
+INFLATION_REPORTING = ["enkfn"]  # report an inflation series (adaptive ETKF / LETKF too)
+# Builders that also take the forecast model's steps per analysis interval (keyword steps_per_interval).
+NEEDS_INTERVAL = ["4dvar"]
 PLUGINS = []  # names added by installed packages' entry points (assimbench/plugins.py)

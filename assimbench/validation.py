@@ -83,6 +83,25 @@ def _check_filter(cfg, model_name: str, ring: bool) -> None:
         _real(cfg, "filter.b_scale", "a finite factor > 0", minimum=0.0)
     if "iterations" in keys:
         _integer(cfg, "filter.iterations", 1, "an integer >= 1")
+    if "inner_iterations" in keys:
+        _integer(cfg, "filter.inner_iterations", 1, "an integer >= 1 (conjugate-gradient steps)")
+    if "prior_extra_count" in keys:
+        _integer(cfg, "filter.prior_extra_count", 0, "0 (count N, Bocquet 2011) or 1 (N + 1, Bocquet et al. 2015)")
+        if node.prior_extra_count > 1:
+            _fail("filter.prior_extra_count", node.prior_extra_count,
+                  "0 (count N, Bocquet 2011) or 1 (N + 1, Bocquet et al. 2015)")
+    if "window" in keys:
+        _integer(cfg, "filter.window", 1, "an integer >= 1 (analysis intervals)")
+    if node.get("adaptive", False):
+        _real(cfg, "filter.adaptive_std", "a finite standard deviation > 0", minimum=0.0)
+        low = _real(cfg, "filter.adaptive_min", "a finite anomaly factor >= 1", minimum=1.0, strict=False)
+        high = _real(cfg, "filter.adaptive_max", "a finite anomaly factor >= adaptive_min", minimum=1.0,
+                     strict=False)
+        if high < low:
+            _fail("filter.adaptive_max", high, f"an anomaly factor >= filter.adaptive_min={low} (bounds reversed)")
+        start = float(node.inflation)
+        if not low <= start <= high:
+            _fail("filter.inflation", start, f"a starting factor within [adaptive_min, adaptive_max] = [{low}, {high}]")
     if "ess_threshold" in keys:
         value = _real(cfg, "filter.ess_threshold", "a fraction in (0, 1]")
         if not 0.0 < value <= 1.0:
@@ -92,11 +111,12 @@ def _check_filter(cfg, model_name: str, ring: bool) -> None:
 
 
 def filter_kind(cfg) -> tuple:
-    """(members, weighted) of the configured filter, from the config alone."""
-    from assimbench.registry import WEIGHTED
+    """(members, weighted, reports_inflation) of the configured filter, from the config alone."""
+    from assimbench.registry import INFLATION_REPORTING, WEIGHTED
 
     members = int(cfg.filter.members) if "members" in cfg.filter else 1
-    return members, cfg.filter.name in WEIGHTED
+    reports = cfg.filter.name in INFLATION_REPORTING or bool(cfg.filter.get("adaptive", False))
+    return members, cfg.filter.name in WEIGHTED, reports
 
 
 def _check_diagnostics(cfg) -> None:

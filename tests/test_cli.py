@@ -24,7 +24,7 @@ def _run(args, cwd):
 # (override, words the one-line message must contain)
 BAD_INPUT = [
     (["model=lorenz99"], ["model=lorenz99", "lorenz63, lorenz96"]),
-    (["filter=kalman"], ["filter=kalman", "3dvar, climatology, enkf, ensrf, etkf, free, letkf, sir"]),
+    (["filter=kalman"], ["filter=kalman", "3dvar, 4dvar, climatology, enkf, enkfn, ensrf, etkf, free, letkf, sir"]),
     (["observation=nowhere"], ["observation=nowhere", "every_station"]),
     (["cycles=abc"], ["cycles", "Integer"]),
     (["filter.members=ten"], ["filter.members", "Integer"]),
@@ -85,6 +85,14 @@ BAD_INPUT = [
     (["model=lorenz96_two_scale", "model.slow=3"], ["model.slow=3", ">= 4"]),
     (["model=kuramoto_sivashinsky", "model.length=0"], ["model.length", "> 0"]),
     (["truth_noise_std=-1"], ["truth_noise_std", ">= 0"]),
+    (["filter=4dvar", "filter.window=0"], ["filter.window=0", ">= 1"]),
+    (["filter=4dvar", "filter.iterations=0"], ["filter.iterations=0", ">= 1"]),
+    (["filter=4dvar", "filter.inner_iterations=0"], ["filter.inner_iterations=0", ">= 1"]),
+    (["filter.adaptive=true", "filter.adaptive_min=1.5", "filter.adaptive_max=1.2"],
+     ["filter.adaptive_max=1.2", "bounds reversed"]),
+    (["filter.adaptive=true", "filter.adaptive_std=0"], ["filter.adaptive_std", "> 0"]),
+    (["filter.adaptive=true", "filter.inflation=2.5"], ["filter.inflation=2.5", "[adaptive_min, adaptive_max]"]),
+    (["filter=enkfn", "filter.prior_extra_count=2"], ["filter.prior_extra_count=2", "Bocquet"]),
     (["lanes.forecast_model.forcing=[7,8]"], ["lanes.forecast_model.forcing", "forecast_model same", "none"]),
     (["forecast_model=lorenz96", "filter=3dvar", "lanes.forecast_model.forcing=[7,8]"],
      ["lanes.forecast_model.forcing", "3dvar", "climatology"]),

@@ -45,6 +45,27 @@ def test_radius_lanes_use_the_largest_window_and_still_match_single_runs():
         np.testing.assert_allclose(lanes, alone, rtol=1e-8, atol=1e-10)
 
 
+RUN = ["cycles=80", "burn_in=20", "chunk_cycles=30", "replicates=2"]
+
+
+@pytest.mark.parametrize("lane_key, values, base", [
+    ("filter.adaptive_std", [0.05, 0.3], ["model.size=12", "filter.members=8", "filter.adaptive=true"]),
+    ("model.coupling", [0.5, 1.0], ["model=lorenz96_two_scale", "model.slow=6", "model.fast_per_slow=3",
+                                    "filter.members=8"]),
+    ("forecast_model.forcing", [7.0, 9.0], ["model.size=12", "filter.members=8", "forecast_model=lorenz96",
+                                            "forecast_model.size=12"]),
+    ("filter.b_scale", [0.05, 0.2], ["model.size=12", "filter=4dvar", "filter.window=2"]),
+])
+def test_newer_lane_keys_equal_the_same_settings_run_one_by_one(lane_key, values, base):
+    """Each lane key added with a new model or filter: a lane batch is the same computation as the
+    settings run one by one (to rounding). The second lane is checked: the static parts are built
+    from the first, so it is the one a wrongly static value would break."""
+    batch = assimbench.run(RUN + base + [f"lanes.{lane_key}=[{','.join(map(str, values))}]"])
+    alone = assimbench.run(RUN + base + [f"{lane_key}={values[1]}"])
+    np.testing.assert_allclose(batch.series["rmse_analysis"][1], alone.series["rmse_analysis"], rtol=1e-8, atol=1e-10)
+    assert not np.allclose(batch.series["rmse_analysis"][0], batch.series["rmse_analysis"][1])
+
+
 def test_two_lane_keys_cross_every_combination_with_the_last_key_fastest():
     cfg = compose_config(SHORT + ["lanes.filter.inflation=[1.0,1.1]", "lanes.filter.rtps=[0.0,0.3,0.6]"])
     grid = lane_grid(cfg)

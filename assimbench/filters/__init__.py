@@ -25,6 +25,7 @@ class Filter(NamedTuple):
     runs_model: bool = True
     weighted: bool = False
     assimilates: bool = True  # False for reference runs: no divergence rule applies
+    reports_inflation: bool = False  # info["inflation"]: the anomaly factor estimated or implied per cycle
 
 
 class EnsembleState(NamedTuple):
@@ -39,7 +40,8 @@ def keep_ensemble(key, initial_ensemble, settings) -> EnsembleState:
     return EnsembleState(members=initial_ensemble)
 
 
-def ensemble_filter(name: str, members: int, update: Callable, pieces=frozenset()) -> Filter:
+def ensemble_filter(name: str, members: int, update: Callable, pieces=frozenset(),
+                    reports_inflation: bool = False) -> Filter:
     """A Filter from ``update(key, prior, y, settings) -> (posterior, info)`` on (N, n) arrays,
     with every inflation piece of :mod:`assimbench.filters.inflation` composed around it."""
     from assimbench.filters.inflation import with_inflation
@@ -50,4 +52,5 @@ def ensemble_filter(name: str, members: int, update: Callable, pieces=frozenset(
         posterior, info = analyse_members(key, state.members, y, settings)
         return EnsembleState(members=posterior), info
 
-    return Filter(name=name, members=members, init=keep_ensemble, analyse=analyse)
+    return Filter(name=name, members=members, init=keep_ensemble, analyse=analyse,
+                  reports_inflation=reports_inflation)

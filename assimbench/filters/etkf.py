@@ -8,6 +8,7 @@ import jax
 import jax.numpy as jnp
 
 from assimbench.filters import Filter, ensemble_filter
+from assimbench.filters.adaptive import adaptive_ensemble_filter
 
 
 def etkf_analysis(members: jax.Array, obs_members: jax.Array, y: jax.Array, error_var) -> jax.Array:
@@ -38,12 +39,15 @@ def etkf_analysis(members: jax.Array, obs_members: jax.Array, y: jax.Array, erro
     return mean + (weights_mean[None, :] + transform) @ anomalies
 
 
-def make_etkf(operator, members: int, pieces=frozenset()) -> Filter:
-    """ETKF with the inflation pieces of :mod:`assimbench.filters.inflation`."""
+def make_etkf(operator, members: int, pieces=frozenset(), adaptive: bool = False) -> Filter:
+    """ETKF with the inflation pieces of :mod:`assimbench.filters.inflation`; with ``adaptive`` the
+    multiplicative factor is estimated every cycle (:mod:`assimbench.filters.adaptive`)."""
 
     def update(key, prior, y, settings):
         del key  # deterministic square-root filter
         error_var = settings["observation"]["error_std"] ** 2
         return etkf_analysis(prior, operator(prior), y, error_var), {}
 
+    if adaptive:
+        return adaptive_ensemble_filter("etkf", members, update, operator, pieces)
     return ensemble_filter("etkf", members, update, pieces)

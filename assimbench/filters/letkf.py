@@ -12,6 +12,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from assimbench.filters import Filter, ensemble_filter
+from assimbench.filters.adaptive import adaptive_ensemble_filter
 from assimbench.localization import gaspari_cohn, ring_distance
 
 
@@ -66,7 +67,8 @@ def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight
     return mean + update[None, :] + transformed.T
 
 
-def make_letkf(model, operator, members: int, radius: float | None, pieces=frozenset()) -> Filter:
+def make_letkf(model, operator, members: int, radius: float | None, pieces=frozenset(),
+               adaptive: bool = False) -> Filter:
     """LETKF on a ring model. ``radius`` (the configured c) fixes the static observation window
     (2c); the traced ``settings["filter"]["radius"]`` sets the taper inside it. With
     ``radius=None`` every grid point sees every observation with weight 1."""
@@ -81,4 +83,6 @@ def make_letkf(model, operator, members: int, radius: float | None, pieces=froze
             weight = jnp.where(mask, gaspari_cohn(distance / settings["filter"]["radius"]), 0.0)
         return letkf_analysis(prior, operator(prior), y, error_var, index, weight), {}
 
+    if adaptive:  # one global factor (assimbench/filters/adaptive.py)
+        return adaptive_ensemble_filter("letkf", members, update, operator, pieces)
     return ensemble_filter("letkf", members, update, pieces)

@@ -1,0 +1,77 @@
+"""Adaptive multiplicative inflation estimated from innovation statistics, carried in the filter state.
+
+Miyoshi (2011, Mon. Wea. Rev. 139, 1519-1535), in its global form (one factor
+for the whole state; Li, Kalnay & Miyoshi 2009 for the observation estimate).
+With the forecast ensemble's uninflated covariance P, innovation
+d = y - mean(h(x_i)) and R = r I over p stations, the innovation identity
+E[d d^T] = rho H P H^T + R (common practice; Desroziers et al. 2005) gives the
+observation estimate of the covariance inflation rho
+
+    rho_o = (d^T d - tr R) / tr(H P H^T),
+
+whose variance, for p nearly independent chi-square terms, is about
+
+    v_o = (2 / p) ((rho_b tr(H P H^T) + tr R) / tr(H P H^T))^2.
+
+A Gaussian prior rho_b with fixed variance v_b = adaptive_std^2 (the previous
+cycle's estimate: persistence) is updated as the product of two Gaussians,
+
+    rho_a = (v_o rho_b + v_b rho_o) / (v_o + v_b),
+
+clipped to [adaptive_min^2, adaptive_max^2], and the prior anomalies are
+multiplied by sqrt(rho_a) before the filter's update. The state carries rho;
+the per-cycle anomaly factor sqrt(rho_a) is reported as ``inflation``.
+``filter.inflation`` is the starting anomaly factor, sqrt(rho_0).
+"""
+
+from typing import NamedTuple
+
+import jax
+import jax.numpy as jnp
+
+from assimbench.filters import Filter
+from assimbench.filters.inflation import with_inflation
+
+
+class AdaptiveState(NamedTuple):
+    """members (N, n) and rho, the current covariance inflation estimate (scalar)."""
+
+    members: jax.Array
+    rho: jax.Array
+
+
+def update_inflation(rho_b, obs_members, y, error_var, prior_variance):
+    """(rho_a before clipping) from the prior ``rho_b`` and this cycle's innovations (equations above).
+
+    obs_members (N, p) uninflated forecast members in observation space; y (p,);
+    error_var the scalar r; prior_variance v_b.
+    """
+    p = y.shape[0]
+    obs_mean = obs_members.mean(axis=0)
+    d = y - obs_mean
+    trace_hph = jnp.sum(jnp.var(obs_members, axis=0, ddof=1))
+    trace_r = p * error_var
+    rho_o = (d @ d - trace_r) / trace_hph
+    v_o = 2.0 / p * ((rho_b * trace_hph + trace_r) / trace_hph) ** 2
+    return (v_o * rho_b + prior_variance * rho_o) / (v_o + prior_variance)
+
+
+def adaptive_ensemble_filter(name: str, members: int, update, operator, pieces=frozenset()) -> Filter:
+    """A Filter from ``update(key, prior, y, settings)`` on (N, n) arrays with the adaptive factor
+    in place of the fixed ``filter.inflation``, and the other inflation pieces composed around it."""
+    analyse_members = with_inflation(update, pieces)
+
+    def init(key, initial_ensemble, settings):
+        del key
+        return AdaptiveState(members=initial_ensemble, rho=settings["filter"]["inflation"] ** 2)
+
+    def analyse(key, state, y, settings):
+        f = settings["filter"]
+        error_var = settings["observation"]["error_std"] ** 2
+        rho = update_inflation(state.rho, operator(state.members), y, error_var, f["adaptive_std"] ** 2)
+        rho = jnp.clip(rho, f["adaptive_min"] ** 2, f["adaptive_max"] ** 2)
+        factor = jnp.sqrt(rho)
+        posterior, info = analyse_members(key, state.members, y, {**settings, "filter": {**f, "inflation": factor}})
+        return AdaptiveState(members=posterior, rho=rho), {**info, "inflation": factor}
+
+    return Filter(name=name, members=members, init=init, analyse=analyse, reports_inflation=True)
