@@ -36,6 +36,7 @@ import jax.numpy as jnp
 from assimbench.diagnostics import (
     ensemble_mean_and_spread,
     make_cycle_diagnostics,
+    rank_perturbations,
     series_catalogue,
 )
 from assimbench.filters import Filter
@@ -196,10 +197,9 @@ def make_chunk(setup: TwinSetup, length: int, batched_settings: bool = False):
         cycles = first_cycle + jnp.arange(length)
         if "rank_histogram" in setup.diagnostics:
             # One batched draw per chunk is cheaper than a small draw per cycle; still keyed by
-            # cycle. Single precision halves the random bits: these perturbations only decide
-            # ranks, so their last digits do not matter.
+            # cycle. These perturbations only decide ranks: 16 random bits each suffice.
             shape = (filt.members, setup.operator.size)
-            draw = lambda k: jax.random.normal(jax.random.fold_in(diagnostic_key, k), shape, dtype=jnp.float32)
+            draw = lambda k: rank_perturbations(jax.random.fold_in(diagnostic_key, k), shape)
             rank_noise = jax.vmap(draw)(cycles).astype(jnp.float64)
         else:
             rank_noise = None

@@ -19,6 +19,7 @@ from typing import NamedTuple
 
 import jax
 import jax.numpy as jnp
+import numpy as np
 
 # Optional groups of series; the four RMSE/spread series are always stored.
 OPTIONAL = ("spread_skill", "crps", "rank_histogram", "innovation", "desroziers", "ess", "increment", "inflation")
@@ -146,6 +147,22 @@ def ensemble_crps(members: jax.Array, weights, truth: jax.Array):
     purity = 1.0 - jnp.sum(weights**2)
     fair = absolute - 0.5 * pairs / jnp.where(purity > 0, purity, 1.0)
     return jnp.mean(crps), jnp.mean(fair)
+
+
+def rank_perturbations(key: jax.Array, shape: tuple) -> jax.Array:
+    """Standard normal draws, (N, p) float32, from 16 random bits each, for the observation rank histogram.
+
+    z = sqrt(2) erfinv(2u - 1) with u = (k + 1/2) / 2^16 and k uniform on 0 .. 2^16 - 1 (the
+    inverse-CDF method, e.g. Devroye 1986, Sec. 2.1): two draws per 32-bit word halve the
+    random-number work, the per-cycle cost of this diagnostic. The quantisation moves no draw by
+    more than a 2^-16 step in probability and cuts the tails at |z| = 4.33 (1.5e-5 lies beyond);
+    only ranks are decided by these draws.
+    """
+    count = int(np.prod(shape))
+    words = jax.random.bits(key, ((count + 1) // 2,), jnp.uint32)
+    halves = jnp.concatenate([words >> 16, words & 0xFFFF])[:count].astype(jnp.float32)
+    uniform = (halves + 0.5) / 65536.0
+    return (np.float32(np.sqrt(2.0)) * jax.scipy.special.erfinv(2.0 * uniform - 1.0)).reshape(shape)
 
 
 def rank_counts(members: jax.Array, verifying: jax.Array) -> jax.Array:
