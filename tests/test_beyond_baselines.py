@@ -187,6 +187,19 @@ def test_the_inflation_update_is_the_product_of_two_gaussians():
     assert float(vague) == pytest.approx(rho_o, rel=1e-9)
 
 
+def test_local_adaptive_inflation_without_localization_is_the_global_one():
+    """With every weight 1 the local estimate at each grid point is the global estimate, and the
+    LETKF without localization is the ETKF (Hunt et al. 2007): the adaptive LETKF with
+    radius=null equals the adaptive ETKF to rounding, inflation series included."""
+    common = ["cycles=60", "burn_in=10", "model.size=12", "filter.members=8", "filter.adaptive=true",
+              "filter.inflation=1.0", "filter.adaptive_std=0.3"]
+    local = assimbench.run(common + ["filter=letkf", "filter.radius=null"])
+    global_ = assimbench.run(common + ["filter=etkf"])
+    np.testing.assert_allclose(local.series["inflation"], global_.series["inflation"], rtol=1e-9)
+    np.testing.assert_allclose(local.series["rmse_analysis"], global_.series["rmse_analysis"], rtol=1e-8)
+    assert np.ptp(global_.series["inflation"]) > 0.01  # it did adapt
+
+
 def test_the_inflation_series_is_stored_for_the_filters_that_estimate_it(tmp_path):
     import h5py
 

@@ -22,6 +22,17 @@ clipped to [adaptive_min^2, adaptive_max^2], and the prior anomalies are
 multiplied by sqrt(rho_a) before the filter's update. The state carries rho;
 the per-cycle anomaly factor sqrt(rho_a) is reported as ``inflation``.
 ``filter.inflation`` is the starting anomaly factor, sqrt(rho_0).
+
+Local form (the LETKF; Miyoshi 2011, Sec. 2b, from memory): every grid point
+g keeps its own rho_g, estimated from the observations it sees, each weighted
+by its localization weight w_gk as in the R-localization,
+
+    rho_o,g = (sum_k w_gk d_k^2 - r sum_k w_gk) / sum_k w_gk s_k^2,
+    v_o,g = (2 / sum_k w_gk) ((rho_b,g sum_k w_gk s_k^2 + r sum_k w_gk) / sum_k w_gk s_k^2)^2,
+
+s_k^2 the forecast variance at station k; the prior anomalies of variable g
+are multiplied by sqrt(rho_g). With all weights 1 this is the global form at
+every grid point; ``inflation`` reports the mean factor over grid points.
 """
 
 from typing import NamedTuple
@@ -40,38 +51,50 @@ class AdaptiveState(NamedTuple):
     rho: jax.Array
 
 
-def update_inflation(rho_b, obs_members, y, error_var, prior_variance):
+def update_inflation(rho_b, obs_members, y, error_var, prior_variance, weights=None):
     """(rho_a before clipping) from the prior ``rho_b`` and this cycle's innovations (equations above).
 
     obs_members (N, p) uninflated forecast members in observation space; y (p,);
-    error_var the scalar r; prior_variance v_b.
+    error_var the scalar r; prior_variance v_b. Global form: rho_b scalar,
+    ``weights`` None. Local form: rho_b (n,) and ``weights`` (n, p), the
+    localization weight of every station for every grid point.
     """
     p = y.shape[0]
-    obs_mean = obs_members.mean(axis=0)
-    d = y - obs_mean
-    trace_hph = jnp.sum(jnp.var(obs_members, axis=0, ddof=1))
-    trace_r = p * error_var
-    rho_o = (d @ d - trace_r) / trace_hph
-    v_o = 2.0 / p * ((rho_b * trace_hph + trace_r) / trace_hph) ** 2
+    d = y - obs_members.mean(axis=0)
+    variance = jnp.var(obs_members, axis=0, ddof=1)  # s_k^2, (p,)
+    if weights is None:
+        count, signal, departure = p, jnp.sum(variance), d @ d
+    else:
+        count, signal, departure = weights.sum(axis=1), weights @ variance, weights @ (d * d)
+    noise = count * error_var
+    rho_o = (departure - noise) / signal
+    v_o = 2.0 / count * ((rho_b * signal + noise) / signal) ** 2
     return (v_o * rho_b + prior_variance * rho_o) / (v_o + prior_variance)
 
 
-def adaptive_ensemble_filter(name: str, members: int, update, operator, pieces=frozenset()) -> Filter:
+def adaptive_ensemble_filter(name: str, members: int, update, operator, pieces=frozenset(),
+                             local_weights=None, state_size: int | None = None) -> Filter:
     """A Filter from ``update(key, prior, y, settings)`` on (N, n) arrays with the adaptive factor
-    in place of the fixed ``filter.inflation``, and the other inflation pieces composed around it."""
+    in place of the fixed ``filter.inflation``, and the other inflation pieces composed around it.
+
+    ``local_weights(settings) -> (n, p)`` switches on the local form (one factor per grid point of a
+    ``state_size`` state); without it one global factor is estimated."""
     analyse_members = with_inflation(update, pieces)
 
     def init(key, initial_ensemble, settings):
         del key
-        return AdaptiveState(members=initial_ensemble, rho=settings["filter"]["inflation"] ** 2)
+        start = settings["filter"]["inflation"] ** 2
+        rho = start if local_weights is None else jnp.full(state_size, start, dtype=jnp.float64)
+        return AdaptiveState(members=initial_ensemble, rho=rho)
 
     def analyse(key, state, y, settings):
         f = settings["filter"]
         error_var = settings["observation"]["error_std"] ** 2
-        rho = update_inflation(state.rho, operator(state.members), y, error_var, f["adaptive_std"] ** 2)
+        weights = None if local_weights is None else local_weights(settings)
+        rho = update_inflation(state.rho, operator(state.members), y, error_var, f["adaptive_std"] ** 2, weights)
         rho = jnp.clip(rho, f["adaptive_min"] ** 2, f["adaptive_max"] ** 2)
-        factor = jnp.sqrt(rho)
+        factor = jnp.sqrt(rho)  # scalar, or (n,): multiplies the anomalies of each variable
         posterior, info = analyse_members(key, state.members, y, {**settings, "filter": {**f, "inflation": factor}})
-        return AdaptiveState(members=posterior, rho=rho), {**info, "inflation": factor}
+        return AdaptiveState(members=posterior, rho=rho), {**info, "inflation": jnp.mean(factor)}
 
     return Filter(name=name, members=members, init=init, analyse=analyse, reports_inflation=True)

@@ -74,15 +74,20 @@ def make_letkf(model, operator, members: int, radius: float | None, pieces=froze
     ``radius=None`` every grid point sees every observation with weight 1."""
     index, distance, mask = local_windows(model.size, operator.positions, radius)
 
+    def local_weight(settings):
+        if radius is None:
+            return jnp.asarray(mask, dtype=jnp.float64)
+        return jnp.where(mask, gaspari_cohn(distance / settings["filter"]["radius"]), 0.0)
+
     def update(key, prior, y, settings):
         del key
         error_var = settings["observation"]["error_std"] ** 2
-        if radius is None:
-            weight = jnp.asarray(mask, dtype=jnp.float64)
-        else:
-            weight = jnp.where(mask, gaspari_cohn(distance / settings["filter"]["radius"]), 0.0)
-        return letkf_analysis(prior, operator(prior), y, error_var, index, weight), {}
+        return letkf_analysis(prior, operator(prior), y, error_var, index, local_weight(settings)), {}
 
-    if adaptive:  # one global factor (assimbench/filters/adaptive.py)
-        return adaptive_ensemble_filter("letkf", members, update, operator, pieces)
+    def station_weights(settings):  # (n, p): every station's weight at every grid point (0 outside the window)
+        rows = jnp.arange(model.size)[:, None]
+        return jnp.zeros((model.size, operator.size)).at[rows, index].add(jnp.where(mask, local_weight(settings), 0.0))
+
+    if adaptive:  # one factor per grid point, from the observations it sees (assimbench/filters/adaptive.py)
+        return adaptive_ensemble_filter("letkf", members, update, operator, pieces, station_weights, model.size)
     return ensemble_filter("letkf", members, update, pieces)
