@@ -255,15 +255,19 @@ def etdrk4_coefficients(linear: np.ndarray, wavenumber: np.ndarray, h: float, co
 
 
 def kuramoto_sivashinsky_operators(size: int, length: float):
-    """(wavenumber k, linear symbol k^2 - k^4) of the rfft modes of ``size`` points on [0, length).
+    """(derivative wavenumber k, linear symbol k^2 - k^4) of the rfft modes of ``size`` points on [0, length).
 
-    The Nyquist mode's wavenumber is set to 0, as in Kassam & Trefethen's code,
-    so derivatives of a real field stay real.
+    The Nyquist mode's derivative wavenumber is 0, as in Kassam & Trefethen's
+    code, so derivatives of a real field stay real; its linear symbol keeps
+    the true |k|, so the mode stays damped. (With a zero symbol it would be
+    a neutral direction of the discrete model: a spurious zero Lyapunov
+    exponent.)
     """
-    wavenumber = 2 * np.pi / length * np.arange(size // 2 + 1, dtype=np.float64)
+    full = 2 * np.pi / length * np.arange(size // 2 + 1, dtype=np.float64)
+    wavenumber = full.copy()
     if size % 2 == 0:
         wavenumber[-1] = 0.0
-    return wavenumber, wavenumber**2 - wavenumber**4
+    return wavenumber, full**2 - full**4
 
 
 def kuramoto_sivashinsky_tendency_factory(size: int, length: float):
