@@ -85,7 +85,8 @@ def build(cfg: DictConfig):
     forecaster = forecast_model(cfg.forecast_model, model)
     operator = every_kth(model.resolved_size, int(cfg.observation.stride), str(cfg.observation.transform))
     interval = float(cfg.observation.interval)
-    extra = {"steps_per_interval": steps_per_cycle(interval, forecaster.dt)} if cfg.filter.name in NEEDS_INTERVAL else {}
+    forecast_steps = steps_per_cycle(interval, forecaster.dt)
+    extra = {"steps_per_interval": forecast_steps} if cfg.filter.name in NEEDS_INTERVAL else {}
     filt, filter_settings = FILTERS[cfg.filter.name](cfg.filter, forecaster, operator, **extra)
     available = available_groups(filt.members, filt.weighted, filt.reports_inflation)
     groups = available if cfg.diagnostics is None else tuple(g for g in available if g in cfg.diagnostics)
@@ -102,7 +103,7 @@ def build(cfg: DictConfig):
         diagnostics=groups,
         fields=fields,
         forecast_model=forecaster if imperfect else None,
-        forecast_steps=steps_per_cycle(interval, forecaster.dt) if imperfect else 0,
+        forecast_steps=forecast_steps if imperfect else 0,
         truth_noise=float(cfg.truth_noise_std) > 0.0,
     )
     settings = {

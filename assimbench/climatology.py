@@ -17,7 +17,8 @@ _SAMPLES: dict = {}
 _MOMENTS: dict = {}
 
 
-def _model_key(model: Model) -> tuple:
+def model_key(model: Model) -> tuple:
+    """A hashable key of a model's static parts and default parameters (array parameters too)."""
     params = tuple(sorted((k, tuple(np.ravel(v).tolist())) for k, v in model.params.items()))
     return (model.name, model.size, model.dt, params)
 
@@ -29,7 +30,7 @@ def attractor_samples(model: Model, samples: int = 20000, spacing: float = 0.1, 
     Samples 0.1 time units apart on Lorenz-96 are nearly independent (its
     decorrelation time is a few tenths; from memory).
     """
-    key = (_model_key(model), samples, spacing, seed)
+    key = (model_key(model), samples, spacing, seed)
     if key not in _SAMPLES:
         spin = make_model_flow(model, max(1, round(model.spinup_time / model.dt)))
         step = make_model_flow(model, max(1, round(spacing / model.dt)))
@@ -46,7 +47,7 @@ def attractor_samples(model: Model, samples: int = 20000, spacing: float = 0.1, 
 
 def climatology(model: Model, samples: int = 20000, spacing: float = 0.1, seed: int = 0):
     """(mean (n,), covariance (n, n)) of :func:`attractor_samples`."""
-    key = (_model_key(model), samples, spacing, seed)
+    key = (model_key(model), samples, spacing, seed)
     if key not in _MOMENTS:
         states = attractor_samples(model, samples, spacing, seed)
         _MOMENTS[key] = (states.mean(axis=0), np.cov(states, rowvar=False).reshape(model.size, model.size))

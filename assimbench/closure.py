@@ -21,7 +21,7 @@ variables k alike, since the ring is homogeneous. Cached per truth setting.
 import jax.numpy as jnp
 import numpy as np
 
-from assimbench.climatology import attractor_samples
+from assimbench.climatology import attractor_samples, model_key
 from assimbench.models import Model, lorenz96_tendency, make_lorenz96
 
 _FITS: dict = {}
@@ -40,7 +40,7 @@ def fit_closure(truth: Model, forcing: float, degree: int, samples: int = 4000) 
     ``truth`` must have a Lorenz-96 ring as its resolved variables;
     ``forcing`` is the forecast model's F (the closure absorbs any difference).
     """
-    key = (truth.name, truth.size, truth.dt, tuple(sorted(truth.params.items())), float(forcing), degree, samples)
+    key = (model_key(truth), float(forcing), degree, samples)
     if key not in _FITS:
         states = attractor_samples(truth, samples=samples)
         resolved = truth.resolved_size

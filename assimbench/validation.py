@@ -86,10 +86,9 @@ def _check_filter(cfg, model_name: str, ring: bool) -> None:
     if "inner_iterations" in keys:
         _integer(cfg, "filter.inner_iterations", 1, "an integer >= 1 (conjugate-gradient steps)")
     if "prior_extra_count" in keys:
-        _integer(cfg, "filter.prior_extra_count", 0, "0 (count N, Bocquet 2011) or 1 (N + 1, Bocquet et al. 2015)")
-        if node.prior_extra_count > 1:
-            _fail("filter.prior_extra_count", node.prior_extra_count,
-                  "0 (count N, Bocquet 2011) or 1 (N + 1, Bocquet et al. 2015)")
+        allowed = "0 (count N, Bocquet 2011) or 1 (N + 1, Bocquet et al. 2015)"
+        if _integer(cfg, "filter.prior_extra_count", 0, allowed) > 1:
+            _fail("filter.prior_extra_count", node.prior_extra_count, allowed)
     if "window" in keys:
         _integer(cfg, "filter.window", 1, "an integer >= 1 (analysis intervals)")
     if node.get("adaptive", False):

@@ -51,21 +51,24 @@ class AdaptiveState(NamedTuple):
     rho: jax.Array
 
 
-def update_inflation(rho_b, obs_members, y, error_var, prior_variance, weights=None):
+def update_inflation(rho_b, obs_members, y, error_var, prior_variance, local=None):
     """(rho_a before clipping) from the prior ``rho_b`` and this cycle's innovations (equations above).
 
     obs_members (N, p) uninflated forecast members in observation space; y (p,);
     error_var the scalar r; prior_variance v_b. Global form: rho_b scalar,
-    ``weights`` None. Local form: rho_b (n,) and ``weights`` (n, p), the
-    localization weight of every station for every grid point.
+    ``local`` None. Local form: rho_b (n,) and ``local`` = (index, weight),
+    each (n, K): the stations each grid point sees and their localization
+    weights (0 for padding), as the LETKF's observation windows.
     """
     p = y.shape[0]
     d = y - obs_members.mean(axis=0)
     variance = jnp.var(obs_members, axis=0, ddof=1)  # s_k^2, (p,)
-    if weights is None:
+    if local is None:
         count, signal, departure = p, jnp.sum(variance), d @ d
     else:
-        count, signal, departure = weights.sum(axis=1), weights @ variance, weights @ (d * d)
+        index, weight = local
+        count = weight.sum(axis=1)
+        signal, departure = jnp.sum(weight * variance[index], axis=1), jnp.sum(weight * (d * d)[index], axis=1)
     noise = count * error_var
     rho_o = (departure - noise) / signal
     v_o = 2.0 / count * ((rho_b * signal + noise) / signal) ** 2
@@ -73,25 +76,25 @@ def update_inflation(rho_b, obs_members, y, error_var, prior_variance, weights=N
 
 
 def adaptive_ensemble_filter(name: str, members: int, update, operator, pieces=frozenset(),
-                             local_weights=None, state_size: int | None = None) -> Filter:
+                             local_windows=None, state_size: int | None = None) -> Filter:
     """A Filter from ``update(key, prior, y, settings)`` on (N, n) arrays with the adaptive factor
     in place of the fixed ``filter.inflation``, and the other inflation pieces composed around it.
 
-    ``local_weights(settings) -> (n, p)`` switches on the local form (one factor per grid point of a
-    ``state_size`` state); without it one global factor is estimated."""
+    ``local_windows(settings) -> (index, weight)``, each (n, K), switches on the local form (one
+    factor per grid point of a ``state_size`` state); without it one global factor is estimated."""
     analyse_members = with_inflation(update, pieces)
 
     def init(key, initial_ensemble, settings):
         del key
         start = settings["filter"]["inflation"] ** 2
-        rho = start if local_weights is None else jnp.full(state_size, start, dtype=jnp.float64)
+        rho = start if local_windows is None else jnp.full(state_size, start, dtype=jnp.float64)
         return AdaptiveState(members=initial_ensemble, rho=rho)
 
     def analyse(key, state, y, settings):
         f = settings["filter"]
         error_var = settings["observation"]["error_std"] ** 2
-        weights = None if local_weights is None else local_weights(settings)
-        rho = update_inflation(state.rho, operator(state.members), y, error_var, f["adaptive_std"] ** 2, weights)
+        local = None if local_windows is None else local_windows(settings)
+        rho = update_inflation(state.rho, operator(state.members), y, error_var, f["adaptive_std"] ** 2, local)
         rho = jnp.clip(rho, f["adaptive_min"] ** 2, f["adaptive_max"] ** 2)
         factor = jnp.sqrt(rho)  # scalar, or (n,): multiplies the anomalies of each variable
         posterior, info = analyse_members(key, state.members, y, {**settings, "filter": {**f, "inflation": factor}})

@@ -84,10 +84,7 @@ def make_letkf(model, operator, members: int, radius: float | None, pieces=froze
         error_var = settings["observation"]["error_std"] ** 2
         return letkf_analysis(prior, operator(prior), y, error_var, index, local_weight(settings)), {}
 
-    def station_weights(settings):  # (n, p): every station's weight at every grid point (0 outside the window)
-        rows = jnp.arange(model.size)[:, None]
-        return jnp.zeros((model.size, operator.size)).at[rows, index].add(jnp.where(mask, local_weight(settings), 0.0))
-
     if adaptive:  # one factor per grid point, from the observations it sees (assimbench/filters/adaptive.py)
-        return adaptive_ensemble_filter("letkf", members, update, operator, pieces, station_weights, model.size)
+        windows = lambda settings: (index, local_weight(settings))
+        return adaptive_ensemble_filter("letkf", members, update, operator, pieces, windows, model.size)
     return ensemble_filter("letkf", members, update, pieces)
