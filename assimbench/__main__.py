@@ -2,6 +2,6 @@
 
 import sys
 
-from assimbench.cli import main
+from assimbench.commands.run import main
 
 sys.exit(main())

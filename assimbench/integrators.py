@@ -93,3 +93,11 @@ def make_model_flow(model, steps: int, ensemble: bool = False):
         return lambda members, params: columns(members.T, params).T
     step = model_step(model)
     return lambda x, params: jax.lax.fori_loop(0, steps, lambda _, state: step(state, params), x)
+
+
+def steps_per_cycle(interval: float, dt: float) -> int:
+    """Number of steps of ``dt`` in one analysis interval, or 0 when it is not a whole multiple of dt."""
+    steps = round(interval / dt)
+    if steps >= 1 and abs(steps * dt - interval) <= 1e-9 * max(interval, dt):
+        return steps
+    return 0

@@ -27,3 +27,33 @@ def ring_distance(a, b, size: int):
     """Shortest distance between grid positions a and b on a ring of ``size`` points."""
     d = np.abs(np.asarray(a, dtype=np.float64) - np.asarray(b, dtype=np.float64)) % size
     return np.minimum(d, size - d)
+
+
+def check_radius(c, model) -> None:
+    """``radius``: a half-width > 0 in grid units, or null; a radius needs a model whose variables
+    sit on a ring (``model``: the facts of the forecast model, :class:`assimbench.config.spec.ModelFacts`)."""
+    if c.node.radius is None:
+        return
+    c.real("radius", "a finite half-width > 0 in grid units, or null for no localization", minimum=0.0)
+    if not model.ring:
+        c.fail("radius", c.node.radius, f"{model.name} has no distance between variables; use {c.name('radius')}=null")
+
+
+def radius_of(node) -> float | None:
+    """The configured radius as a float, or None when localization is off."""
+    return None if node.radius is None else float(node.radius)
+
+
+def with_radius_check(check):
+    """A filter's check followed by the radius check (for localized filters)."""
+
+    def both(c, model) -> None:
+        check(c)
+        check_radius(c, model)
+
+    return both
+
+
+def radius_setting(node) -> dict:
+    """The traced radius (0 when localization is off: the filter is then built without a taper)."""
+    return {"radius": 0.0 if node.radius is None else float(node.radius)}

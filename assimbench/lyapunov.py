@@ -27,7 +27,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from assimbench.integrators import model_step
-from assimbench.models import Model
+from assimbench.models.base import Model
 
 
 class Spectrum(NamedTuple):

@@ -31,9 +31,9 @@ import numpy as np  # noqa: E402
 sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 import assimbench  # noqa: E402
-from assimbench.api import build  # noqa: E402
-from assimbench.climatology import climatology  # noqa: E402
-from assimbench.cycling import make_start, replicate_keys  # noqa: E402
+from assimbench.config.plan import resolve  # noqa: E402
+from assimbench.models.climatology import climatology  # noqa: E402
+from assimbench.twin.cycling import make_start, replicate_keys  # noqa: E402
 from benchmarks import numpy_letkf, numpy_twin  # noqa: E402
 
 L63 = ["model=lorenz63", "observation.interval=0.25", "observation.error_std=1.4142135623730951"]
@@ -54,7 +54,8 @@ CASES = {
 def package_start(overrides: list) -> dict:
     """The package's initial truth and ensemble, settings and config for ``overrides``."""
     cfg = assimbench.compose_config(overrides)
-    setup, settings = build(cfg)
+    plan = resolve(cfg)
+    setup, settings = plan.setup, plan.settings
     carry = make_start(setup)(replicate_keys(int(cfg.seed), 1), settings)
     start = {"cfg": cfg, "setup": setup, "truth": np.asarray(carry.truth[0]),
              "ensemble": np.asarray(carry.filter_state.members[0])}

@@ -28,7 +28,7 @@ LONG = {"lorenz63 ETKF N=10": 1_000_000, "lorenz96 ETKF N=20": 200_000}
 def peak_rss_mb(args):
     """Run one job in a child process; return its peak resident memory in MB."""
     with tempfile.TemporaryDirectory() as folder:
-        code = "import sys, assimbench; from assimbench.composition import compose_config; " \
+        code = "import sys, assimbench; from assimbench.config.composition import compose_config; " \
                "assimbench.run_experiment(compose_config(sys.argv[1:-1]), output=sys.argv[-1], keep_series=False)"
         before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
         subprocess.run([sys.executable, "-c", code, *args, os.path.join(folder, "r.h5")], check=True)

@@ -7,7 +7,8 @@ import pytest
 from scipy.integrate import solve_ivp
 
 from assimbench.integrators import EULER, HEUN, RK4, make_flow
-from assimbench.models import lorenz63_tendency, lorenz96_tendency
+from assimbench.models.lorenz63 import lorenz63_tendency
+from assimbench.models.lorenz96 import lorenz96_tendency
 
 L63 = {"sigma": 10.0, "rho": 28.0, "beta": 8.0 / 3.0}
 X0 = np.array([1.5, -2.0, 22.0])

@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 
 from assimbench.lyapunov import kaplan_yorke_dimension, lyapunov_spectrum
-from assimbench.models import make_lorenz63, make_lorenz96
+from assimbench.models.lorenz63 import make_lorenz63
+from assimbench.models.lorenz96 import make_lorenz96
 
 
 @pytest.fixture(scope="module")
@@ -58,7 +59,7 @@ def test_kaplan_yorke_dimension_of_textbook_spectra():
 
 def _command():
     script = os.path.join(os.path.dirname(sys.executable), "assimbench-lyapunov")
-    return [script] if os.path.exists(script) else [sys.executable, "-m", "assimbench.lyapunov_command"]
+    return [script] if os.path.exists(script) else [sys.executable, "-m", "assimbench.commands.lyapunov"]
 
 
 def test_the_console_script_writes_the_spectrum_file(tmp_path):

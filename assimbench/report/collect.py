@@ -1,41 +1,69 @@
 """Gather result files into rows: one row per lane of each complete file.
 
-A row carries the flattened resolved config (lane values applied), the time
-means with their intervals, and the path to read per-cycle series from when a
-paired comparison needs them. Rows are grouped into experiments: rows of one
-experiment share the truth and the observations (same model, observation
-network, seed, replicates and cycles), so their differences are paired.
+A row is one lane of one result (a :class:`~assimbench.io.results.Result`
+without lanes) with its config flattened ("filter.inflation" -> 1.05) and the
+number of its experiment. Rows of one experiment share the truth and the
+observations: the same stored experiment key (a hash of everything that fixes
+them, written by the run) and the same burn-in, so their differences are
+paired. A file without an experiment key is named and never paired.
 """
 
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import h5py
 import numpy as np
 
-from assimbench.results import ResultFileError, read_result
+from assimbench.io.results import Result, ResultFileError, read_result
 
-# Keys that fix the truth and the observations: rows differing in them are separate experiments.
+# Keys that describe how experiments differ (for the report's text; pairing is by the stored key).
 EXPERIMENT_PREFIXES = ("model.", "observation.")
-EXPERIMENT_KEYS = ("seed", "replicates", "cycles", "burn_in")
+EXPERIMENT_KEYS = ("seed", "replicates", "cycles", "burn_in", "truth_noise_std")
 # Keys that never describe a setting of the comparison.
 IGNORED_PREFIXES = ("lanes.", "store.", "output", "chunk_cycles", "diagnostics", "divergence_")
 
 
 @dataclass
 class Row:
-    """One lane of one result file."""
+    """One lane of one result file: the result, its flattened config, its experiment number."""
 
-    path: str
-    lane: int  # -1 for a file without lanes
+    result: Result
     config: dict  # flattened: "filter.inflation" -> 1.05
-    summary: dict  # name -> float
-    per_replicate: dict  # name -> (R,)
-    totals: dict  # rank-count name -> (R, N + 1)
-    first_bad_cycle: np.ndarray  # (R,)
-    interval: float
     experiment: int = 0
-    extra: dict = field(default_factory=dict)
+
+    @property
+    def path(self) -> str:
+        return self.result.path
+
+    @property
+    def lane(self) -> int:
+        """The lane index in its file (-1 for a file without lanes)."""
+        return self.result.lane_index
+
+    @property
+    def summary(self) -> dict:
+        return self.result.summary
+
+    @property
+    def per_replicate(self) -> dict:
+        return self.result.per_replicate
+
+    @property
+    def totals(self) -> dict:
+        return self.result.totals
+
+    @property
+    def first_bad_cycle(self) -> np.ndarray:
+        return np.asarray(self.result.first_bad_cycle)
+
+    @property
+    def interval(self) -> float:
+        return self.result.interval
+
+    @property
+    def experiment_key(self) -> tuple:
+        """What pairs rows: the stored experiment key and the burn-in."""
+        return (self.result.experiment_keys[0], self.config.get("burn_in"))
 
     @property
     def lost(self) -> int:
@@ -84,30 +112,13 @@ def result_files(paths) -> tuple:
 
 
 def rows_of(path: str) -> list:
-    """The rows of one file; ResultFileError when it is not a complete result."""
-    stored = read_result(path)
-    config = flatten(stored.config)
-    interval = float(config.get("observation.interval", 1.0))
-    if not stored.lanes:
-        return [Row(path, -1, config, stored.summary, stored.per_replicate, stored.totals,
-                    np.asarray(stored.first_bad_cycle), interval)]
-    rows = []
-    for lane in range(len(next(iter(stored.lanes.values())))):
-        lane_config = dict(config)
-        lane_config.update({key: float(values[lane]) for key, values in stored.lanes.items()})
-        rows.append(Row(
-            path, lane, lane_config,
-            {k: float(np.asarray(v)[lane]) for k, v in stored.summary.items()},
-            {k: v[lane] for k, v in stored.per_replicate.items()},
-            {k: v[lane] for k, v in stored.totals.items()},
-            np.asarray(stored.first_bad_cycle[lane]), interval,
-        ))
-    return rows
-
-
-def experiment_key(row: Row) -> tuple:
-    items = [(k, v) for k, v in row.config.items() if k.startswith(EXPERIMENT_PREFIXES) or k in EXPERIMENT_KEYS]
-    return tuple(sorted((k, repr(v)) for k, v in items))
+    """The rows of one file; ResultFileError when it is not a complete result or has no experiment key."""
+    stored = read_result(path, series=False)
+    if not stored.experiment_keys:
+        raise ResultFileError(f"{path}: no experiment key (written by an older version), so it cannot be "
+                              "paired with other runs; run it again")
+    slices = [stored.lane(i) for i in range(stored.lane_count)] if stored.lanes else [stored]
+    return [Row(one, flatten(one.config)) for one in slices]
 
 
 def collect(paths) -> tuple:
@@ -121,7 +132,7 @@ def collect(paths) -> tuple:
             problems.append(f"{err}; skipped")
     experiments = {}
     for row in rows:
-        row.experiment = experiments.setdefault(experiment_key(row), len(experiments) + 1)
+        row.experiment = experiments.setdefault(row.experiment_key, len(experiments) + 1)
     return rows, problems
 
 

@@ -1,16 +1,18 @@
 """Figures of a report, as PNG files: plain, labelled, with units on every axis.
 
 Each function takes rows (:class:`assimbench.report.collect.Row`) and a path,
-draws one figure and writes it through a temporary name.
+draws one figure and writes it through a temporary name. Figures are made
+with matplotlib's object interface (no pyplot, so no backend is chosen or
+switched: files only, no screen).
 """
 
-import os
-
 import matplotlib
+import matplotlib.patches
+import matplotlib.ticker
+import numpy as np
+from matplotlib.figure import Figure
 
-matplotlib.use("Agg")  # files only, no screen
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
+from assimbench.io.atomic import atomic_file
 
 # Our own muted palette and a quiet frame.
 PALETTE = ("#1f4e79", "#c0504d", "#4f7f3a", "#8064a2", "#d08c1b", "#2f8f9d", "#7f6a4f", "#5a5a5a")
@@ -33,11 +35,16 @@ TIME_UNITS = "model time units"
 
 
 def _save(fig, path: str) -> str:
-    partial = path + ".partial.png"
-    fig.savefig(partial, bbox_inches="tight")
-    plt.close(fig)
-    os.replace(partial, path)
+    with atomic_file(path) as partial:
+        fig.savefig(partial, format="png", bbox_inches="tight")
     return path
+
+
+def _axes(rows: int = 1, columns: int = 1, squeeze: bool = True, **figure) -> tuple:
+    """A new figure and its axes (as ``Figure.subplots`` gives them)."""
+    fig = Figure(**figure)
+    axes = fig.subplots(rows, columns, squeeze=squeeze)
+    return fig, axes
 
 
 def _label(row) -> str:
@@ -58,8 +65,8 @@ def running_mean(values: np.ndarray, window: int) -> np.ndarray:
 
 def errors_over_cycles(rows: list, path: str, window: int = 20) -> str:
     """Analysis RMSE (solid) and spread (dashed) of replicate 0 against model time."""
-    with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(7.0, 3.6))
+    with matplotlib.rc_context(STYLE):
+        fig, ax = _axes(figsize=(7.0, 3.6))
         colours = _colour([_label(r) for r in rows])
         for row in rows[: len(PALETTE)]:
             rmse, spread = row.series("rmse_analysis")[0], row.series("spread_analysis")[0]
@@ -89,8 +96,8 @@ def heat_map(rows: list, x_key: str, y_key: str, path: str, metric: str = "rmse_
         i, j = ys.index(r.config[y_key]), xs.index(r.config[x_key])
         grid[i, j] = r.summary.get(metric, np.nan)
         lost[i, j] = r.lost > 0
-    with plt.rc_context({**STYLE, "axes.grid": False}):
-        fig, ax = plt.subplots(figsize=(1.2 + 0.9 * len(xs), 1.2 + 0.6 * len(ys)))
+    with matplotlib.rc_context({**STYLE, "axes.grid": False}):
+        fig, ax = _axes(figsize=(1.2 + 0.9 * len(xs), 1.2 + 0.6 * len(ys)))
         shown = np.where(lost, np.nan, grid)
         finite = shown[np.isfinite(shown)]
         vmin, vmax = (finite.min(), finite.max()) if finite.size else (0.0, 1.0)
@@ -98,7 +105,7 @@ def heat_map(rows: list, x_key: str, y_key: str, path: str, metric: str = "rmse_
         for i in range(len(ys)):
             for j in range(len(xs)):
                 if lost[i, j]:
-                    ax.add_patch(plt.Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, hatch="xxx", color="#9a9a9a"))
+                    ax.add_patch(matplotlib.patches.Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, hatch="xxx", color="#9a9a9a"))
                     ax.text(j, i, "lost", ha="center", va="center", fontsize=8, color="#444444")
                 elif np.isfinite(grid[i, j]):
                     dark = (grid[i, j] - vmin) > 0.5 * (vmax - vmin)
@@ -117,8 +124,8 @@ def heat_map(rows: list, x_key: str, y_key: str, path: str, metric: str = "rmse_
 
 def tuned_curve(best: list, path: str, metric: str = "rmse_analysis") -> str:
     """Tuned time-mean ``metric`` against ensemble size, one line per filter, 95% error bars."""
-    with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(5.2, 3.6))
+    with matplotlib.rc_context(STYLE):
+        fig, ax = _axes(figsize=(5.2, 3.6))
         filters = sorted({r.filter for r in best})
         colours = _colour(filters)
         for name in filters:
@@ -145,9 +152,9 @@ def tuned_curve(best: list, path: str, metric: str = "rmse_analysis") -> str:
 def rank_histograms(best: list, path: str, name: str = "rank_truth_forecast") -> str:
     """Relative frequency of the truth's rank among the forecast members, one panel per row."""
     rows = [r for r in best if name in r.totals][:6]
-    with plt.rc_context(STYLE):
-        fig, axes = plt.subplots(1, max(1, len(rows)), figsize=(2.6 * max(1, len(rows)), 2.8), squeeze=False,
-                                 layout="constrained")
+    with matplotlib.rc_context(STYLE):
+        fig, axes = _axes(1, max(1, len(rows)), squeeze=False, figsize=(2.6 * max(1, len(rows)), 2.8),
+                          layout="constrained")
         for ax, row in zip(axes[0], rows):
             counts = np.asarray(row.totals[name]).sum(axis=0).astype(float)
             frequency = counts / counts.sum()
@@ -163,8 +170,8 @@ def rank_histograms(best: list, path: str, name: str = "rank_truth_forecast") ->
 def spread_against_error(rows: list, path: str) -> str:
     """Time-mean analysis spread against RMSE for every setting that kept all replicates."""
     kept = [r for r in rows if not r.lost]
-    with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(4.4, 4.0))
+    with matplotlib.rc_context(STYLE):
+        fig, ax = _axes(figsize=(4.4, 4.0))
         colours = _colour([r.filter for r in kept])
         for name, colour in colours.items():
             mine = [r for r in kept if r.filter == name]

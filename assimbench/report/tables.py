@@ -9,7 +9,7 @@ Paired difference of two tuned filters of the same experiment: they saw the
 same truth and observations, so the difference d_r(k) = e_A,r(k) - e_B,r(k)
 of their per-cycle analysis RMSE is formed cycle by cycle and replicate by
 replicate, and its time mean after burn-in gets the same batch-means 95%
-interval as every other time mean (:mod:`assimbench.summaries`). Pairing
+interval as every other time mean (:mod:`assimbench.twin.summaries`). Pairing
 removes the variability the two filters share (the weather of the truth and
 the observation noise), so the interval is much narrower than one formed from
 the two separate intervals.
@@ -22,7 +22,7 @@ import itertools
 import numpy as np
 
 from assimbench.report.collect import Row, varied_settings
-from assimbench.summaries import TimeMeans
+from assimbench.twin.summaries import TimeMeans
 
 METRICS = (
     ("rmse_analysis", "analysis RMSE"),

@@ -1,0 +1,1 @@
+"""One thin module per console script."""

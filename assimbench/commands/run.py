@@ -1,0 +1,277 @@
+"""Command line ``assimbench``: a Hydra app over the ``configs/`` groups.
+
+Before Hydra starts, every job of the command (every point of a ``-m`` sweep)
+is composed and validated, so a bad value stops the whole command with one
+line on stderr and exit status 2, before anything is written.
+
+Re-run: ``assimbench --from FILE [overrides]`` runs the experiment stored in
+a result file again (its stored resolved config, then the overrides).
+
+Resume: a job whose output already holds a complete result of the same
+resolved config (the stored ``config_hash``) is skipped; a complete result
+of another config is never overwritten (exit 2); a missing or incomplete
+file is (re)written. In a multirun each job's folder is named by its own
+overrides, so re-running the same command into the same ``hydra.sweep.dir``
+finds the finished jobs, and the command says how many it skips.
+"""
+
+import os
+import signal
+import sys
+
+import hydra
+import numpy as np
+from hydra.core.hydra_config import HydraConfig
+from omegaconf import DictConfig, OmegaConf
+
+from assimbench.api import run_experiment
+from assimbench.commands._hydra import compose_jobs, fail, informational, run_command
+from assimbench.config.checks import ConfigError
+from assimbench.config.composition import config_dir
+from assimbench.config.plan import resolve
+from assimbench.io.provenance import config_hash
+from assimbench.io.results import ResultFileError, read_result, stored_config_hash
+
+COMMAND = "assimbench"
+
+
+def _sweep_dir(overrides: list[str]) -> str:
+    for override in overrides:
+        key, _, value = override.partition("=")
+        if key.lstrip("+") == "hydra.sweep.dir":
+            return value
+    return str(OmegaConf.load(os.path.join(config_dir(), "config.yaml")).hydra.sweep.dir)
+
+
+def finished_hashes(folder: str) -> set:
+    """Config hashes of the complete result files under ``folder`` (any depth)."""
+    hashes = set()
+    for root, _, files in os.walk(folder):
+        for name in files:
+            if name.endswith(".h5"):
+                digest = stored_config_hash(os.path.join(root, name))
+                if digest is not None:
+                    hashes.add(digest)
+    return hashes
+
+
+def preflight(argv: list[str]) -> None:
+    """Compose and check every job of ``argv``; raise ConfigError on the first bad one (nothing to
+    check for a call that only prints). For a multirun, say how many jobs already have a complete
+    result (they are skipped)."""
+    args, jobs = compose_jobs(argv)
+    if informational(args):
+        return
+    if args.multirun:
+        folder = _sweep_dir(list(args.overrides))
+        done = finished_hashes(folder) if os.path.isdir(folder) and "${" not in folder else set()
+        skipped = sum(config_hash(cfg) in done for cfg in jobs)
+        if skipped:
+            print(f"assimbench: resuming {folder}: {skipped} of {len(jobs)} jobs already have a complete "
+                  "result with the same config and are skipped", file=sys.stderr, flush=True)
+
+
+def _already_done(cfg: DictConfig, output: str) -> bool:
+    """True when ``output`` holds a complete result of this config; ConfigError when it
+    holds a complete result of another config (never overwritten)."""
+    if not os.path.exists(output):
+        return False
+    stored = stored_config_hash(output)
+    if stored is None:
+        return False  # incomplete or unreadable: run again
+    if stored != config_hash(cfg):
+        raise ConfigError(f"output={output} holds a complete result of another config; it is not overwritten "
+                          "(choose another output or hydra.sweep.dir)")
+    return True
+
+
+def _cell(summary, name):
+    if name not in summary:
+        return f"{'-':>22}"
+    mean, low, high = summary[name], summary.get(name + "_low"), summary.get(name + "_high")
+    if low is None or np.isnan(low):  # no interval
+        return f"{mean:>22.4f}"
+    return f"{mean:.4f} +- {(high - low) / 2:.4f}".rjust(22)
+
+
+def format_summary(result, path, title: str) -> str:
+    """The short table printed at the end of a run: time means after burn-in with 95% intervals."""
+    head = title
+    if result.lanes:
+        head += f", {result.lane_count} lanes"
+        return "\n".join([head] + _lane_rows(result) + _footer(result, path))
+    s = result.summary
+    lines = [head, f"  {'time mean (95%)':<20}{'forecast':>22}{'analysis':>22}"]
+    for label, stem in (("RMSE", "rmse"), ("spread", "spread"), ("spread / RMSE", "spread_skill"),
+                        ("CRPS", "crps"), ("CRPS (fair)", "crps_fair")):
+        if f"{stem}_analysis" in s:
+            lines.append(f"  {label:<20}{_cell(s, stem + '_forecast')}{_cell(s, stem + '_analysis')}")
+    for label, name in (("innovation ratio", "innovation_ratio"), ("Desroziers R", "desroziers_r"),
+                        ("Desroziers HBH^T", "desroziers_hbht"), ("ESS", "ess")):
+        if name in s:
+            lines.append(f"  {label:<20}{_cell(s, name)}")
+    if result.diverged:
+        where = ", ".join(f"replicate {r} at cycle {c}" for r, c in enumerate(result.first_bad_cycle) if c >= 0)
+        lines.append(f"  DIVERGED: {where}")
+    return "\n".join(lines + _footer(result, path))
+
+
+def _lane_rows(result) -> list:
+    """One row per lane: its values, analysis RMSE and spread with 95% intervals, lost replicates."""
+    keys = list(result.lanes)
+    width = max(12, *(len(k) + 2 for k in keys))
+    s = result.summary
+    head = "  " + "".join(f"{k:>{width}}" for k in keys)
+    head += f"{'analysis RMSE (95%)':>24}{'analysis spread':>22}{'lost':>7}"
+    rows = [head]
+    for lane in range(result.lane_count):
+        one = {name: float(np.asarray(v)[lane]) for name, v in s.items()}
+        lost = int(np.sum(result.first_bad_cycle[lane] >= 0))
+        row = "  " + "".join(f"{result.lanes[k][lane]:>{width}g}" for k in keys)
+        rows.append(row + f"{_cell(one, 'rmse_analysis'):>24}{_cell(one, 'spread_analysis')}{lost:>7}")
+    return rows
+
+
+def _footer(result, path) -> list:
+    batch = int(np.size(result.first_bad_cycle))
+    runs = f"{batch} runs side by side" if batch > 1 else "1 run"
+    lines = [
+        f"  start-up {result.attrs['startup_seconds']:.1f} s (compile {result.compile_seconds:.1f} s), "
+        + f"cycling {result.run_seconds:.2f} s "
+        + f"({result.microseconds_per_cycle:.0f} us per cycle for {runs})"
+    ]
+    if path is not None:
+        lines.append(f"  result: {path}")
+    return lines
+
+
+class _ChunkProgress:
+    """A progress bar per chunk on a terminal (tqdm on stderr); silent otherwise.
+
+    The bar appears with the first finished chunk, so its rate excludes compilation.
+    """
+
+    def __init__(self, total: int):
+        self._total = total
+        self._bar = None
+        self.done = 0
+
+    def __call__(self, done: int, total: int) -> None:
+        self.done = done
+        if self._bar is None and sys.stderr.isatty():
+            from tqdm import tqdm
+
+            self._bar = tqdm(total=total, unit="cycle", desc="assimbench", leave=False, file=sys.stderr)
+        if self._bar is not None:
+            self._bar.update(done - self._bar.n)
+
+    def close(self) -> None:
+        if self._bar is not None:
+            self._bar.close()
+
+
+class Stopped(BaseException):
+    """SIGTERM or SIGINT arrived; raised between chunks so the writer can close cleanly."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+
+def _raise_stopped(signum, frame):
+    raise Stopped(signum)
+
+
+def _catch_stop_signals() -> None:
+    for signum in (signal.SIGTERM, signal.SIGINT):
+        try:
+            signal.signal(signum, _raise_stopped)
+        except ValueError:  # not the main thread (some launchers): keep the default behaviour
+            pass
+
+
+@hydra.main(config_path=config_dir(), config_name="config", version_base="1.3")
+def _hydra_app(cfg: DictConfig) -> None:
+    output = cfg.output
+    if output is not None and not os.path.isabs(output):
+        output = os.path.join(HydraConfig.get().runtime.output_dir, output)
+    progress = _ChunkProgress(int(cfg.cycles))
+    _catch_stop_signals()
+    try:
+        if output is not None and _already_done(cfg, output):
+            print(f"{COMMAND}: skipped: {output} is complete for this config", flush=True)
+            return
+        plan = resolve(cfg)
+        result = run_experiment(plan, output=output, progress=progress, keep_series=False)
+    except ConfigError as err:
+        sys.exit(fail(COMMAND, str(err)))
+    except Stopped as stop:
+        name = signal.Signals(stop.signum).name
+        kept = (f"the completed chunks ({progress.done} of {cfg.cycles} cycles) are kept in {output}.partial, "
+                "marked incomplete" if output is not None else "no file was asked for")
+        print(f"{COMMAND}: stopped by {name}; {kept}; run the same command again to start it anew",
+              file=sys.stderr, flush=True)
+        sys.exit(128 + stop.signum)
+    finally:
+        progress.close()
+        # The result is complete (or the job ended): a late signal must not report a stop.
+        for signum in (signal.SIGTERM, signal.SIGINT):
+            try:
+                signal.signal(signum, signal.SIG_DFL if signum == signal.SIGTERM else signal.default_int_handler)
+            except ValueError:
+                pass
+    print(format_summary(result, result.path, plan.title), flush=True)
+
+
+def _override_value(value) -> str:
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return repr(value)
+    if isinstance(value, (list, tuple)):
+        return "[" + ",".join(_override_value(v) for v in value) + "]"
+    return "'" + str(value).replace("\\", "\\\\").replace("'", "\\'") + "'"
+
+
+# The config groups a stored config chose, in the order they are selected.
+GROUP_CHOICES = ("model", "forecast_model", "filter")
+
+
+def overrides_from_config(config: dict, prefix: str = "") -> list[str]:
+    """Overrides that compose back to ``config`` (a stored, resolved config): every group choice
+    first, then every leaf as key=value."""
+    out = []
+    if not prefix:
+        out += [f"{group}={config[group]['name']}" for group in GROUP_CHOICES if group in config]
+    for key, value in config.items():
+        full = f"{prefix}{key}"
+        if isinstance(value, dict):
+            out += overrides_from_config(value, full + ".")
+        else:
+            out.append(f"{full}={_override_value(value)}")
+    return out
+
+
+def _from_file(argv: list[str]) -> list[str]:
+    """``--from FILE`` -> the overrides of the config stored in FILE, followed by the other arguments."""
+    at = argv.index("--from")
+    if at + 1 >= len(argv):
+        raise ConfigError("--from needs the path of a result file")
+    path = argv[at + 1]
+    try:
+        stored = read_result(path, series=False)
+    except ResultFileError as err:
+        raise ConfigError(str(err)) from None
+    rest = argv[:at] + argv[at + 2 :]
+    return overrides_from_config(stored.config) + rest
+
+
+def main(argv=None) -> int:
+    """Entry point of the ``assimbench`` console script."""
+    return run_command(COMMAND, argv, _hydra_app, preflight, lambda args: _from_file(args) if "--from" in args else args)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

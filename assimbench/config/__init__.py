@@ -1,0 +1,1 @@
+"""Configuration: schemas, specs and their catalogue, checks, lanes, the plan, composition."""

@@ -1,0 +1,82 @@
+"""Ensemble transform Kalman filter, symmetric square-root form.
+
+Hunt, Kostelich & Szunyogh (2007, Physica D 230, 112-126), eq. 15-24 (the
+global version of their algorithm). Members are rows: X_b is (N, n).
+"""
+
+from dataclasses import dataclass
+
+import jax
+import jax.numpy as jnp
+
+from assimbench.config.spec import FilterSpec
+from assimbench.filters.base import Filter
+from assimbench.filters.kalman.adaptive import (
+    ADAPTIVE_KEYS,
+    AdaptiveInflationConfig,
+    adaptive_ensemble_filter,
+    adaptive_inflation_settings,
+    check_adaptive_inflation,
+)
+from assimbench.filters.kalman.ensemble_space import (
+    ensemble_space,
+    mean_weights,
+    precision,
+    symmetric_square_root_transform,
+    transform_members,
+)
+from assimbench.filters.kalman.inflation import INFLATION_KEYS, WIDEST, ensemble_filter, inflation_pieces
+
+
+def etkf_analysis(members: jax.Array, obs_members: jax.Array, y: jax.Array, error_var) -> jax.Array:
+    """One ETKF analysis of the ensemble ``members`` (N, n).
+
+    obs_members: h applied to every member, (N, p); y: observations (p,);
+    error_var: observation error variance, a scalar or (p,) (R is diagonal).
+    With anomalies X (N, n) and Y (N, p) about the means xbar and ybar:
+
+        A      = (N - 1) I + Y R^-1 Y^T           (N, N)
+        P~a    = A^-1
+        wbar   = P~a Y R^-1 (y - ybar)
+        W      = sqrt(N - 1) A^(-1/2)             (symmetric square root)
+        x_a,i  = xbar + sum_j (wbar_j + W_ji) X_j
+
+    Any inflation must already be applied to ``members``. Returns (N, n).
+    """
+    space = ensemble_space(members, obs_members, error_var)
+    evals, evecs = jnp.linalg.eigh(precision(space))
+    return transform_members(space, mean_weights(space, y, evals, evecs), symmetric_square_root_transform(evals, evecs))
+
+
+def make_etkf(operator, members: int, pieces=frozenset(), adaptive: bool = False) -> Filter:
+    """ETKF with the inflation pieces of :mod:`assimbench.filters.inflation`; with ``adaptive`` the
+    multiplicative factor is estimated every cycle (:mod:`assimbench.filters.adaptive`)."""
+
+    def update(key, prior, y, settings):
+        del key  # deterministic square-root filter
+        error_var = settings["observation"]["error_std"] ** 2
+        return etkf_analysis(prior, operator(prior), y, error_var), {}
+
+    if adaptive:
+        return adaptive_ensemble_filter("etkf", members, update, operator, pieces)
+    return ensemble_filter("etkf", members, update, pieces)
+
+
+@dataclass
+class ETKFConfig(AdaptiveInflationConfig):
+    """ETKF (Hunt et al. 2007) with the inflation pieces and optional adaptive inflation."""
+
+    name: str = "etkf"
+
+
+SPEC = FilterSpec(
+    name="etkf",
+    schema=ETKFConfig,
+    build=lambda node, ctx: make_etkf(ctx.operator, int(node.members), inflation_pieces(node), bool(node.adaptive)),
+    settings=adaptive_inflation_settings,
+    check=lambda c, model: check_adaptive_inflation(c),
+    traced=INFLATION_KEYS + ADAPTIVE_KEYS[:1],
+    widest=WIDEST,
+    kalman_exact=True,
+    reports_inflation=lambda node: bool(node.adaptive),
+)

@@ -1,0 +1,145 @@
+"""Inflation pieces, composable with every ensemble filter.
+
+Conventions of the whole package:
+- ``filter.inflation`` multiplies the prior anomalies (deviations from the
+  ensemble mean), so the prior covariance grows by its square (Anderson &
+  Anderson 1999, Mon. Wea. Rev. 127).
+- ``filter.additive_std`` adds centred N(0, additive_std^2 I) perturbations to
+  the prior members (the ensemble mean is unchanged; the expected prior
+  covariance grows by additive_std^2 I).
+- ``filter.rtpp`` relaxes the posterior anomalies to the prior ones (Zhang,
+  Snyder & Sun 2004, Mon. Wea. Rev. 132): x'_a <- (1 - alpha) x'_a + alpha x'_b.
+- ``filter.rtps`` relaxes the posterior spread to the prior spread (Whitaker &
+  Hamill 2012, Mon. Wea. Rev. 140, eq. 3):
+  x'_a <- x'_a [alpha (sigma_b - sigma_a) / sigma_a + 1], per variable.
+Order in one analysis: multiplicative, additive, the filter's update, RTPP,
+RTPS; "prior" means the ensemble after the prior-side pieces.
+"""
+
+from dataclasses import dataclass
+
+import jax
+import jax.numpy as jnp
+
+from assimbench.config.spec import NodeChecks, floats
+from assimbench.filters.base import EnsembleState, Filter, keep_ensemble
+
+
+def inflate_anomalies(members: jax.Array, factor) -> jax.Array:
+    """x_i <- xbar + factor (x_i - xbar); members (N, n)."""
+    mean = members.mean(axis=0)
+    return mean + factor * (members - mean)
+
+
+def add_centred_noise(key, members: jax.Array, std) -> jax.Array:
+    """x_i <- x_i + std (e_i - ebar), e_i ~ N(0, I); members (N, n)."""
+    noise = jax.random.normal(key, members.shape)
+    return members + std * (noise - noise.mean(axis=0))
+
+
+def relax_to_prior_perturbations(prior: jax.Array, posterior: jax.Array, alpha) -> jax.Array:
+    """RTPP: x'_a <- (1 - alpha) x'_a + alpha x'_b, mean unchanged; (N, n) each."""
+    mean = posterior.mean(axis=0)
+    return mean + (1.0 - alpha) * (posterior - mean) + alpha * (prior - prior.mean(axis=0))
+
+
+def relax_to_prior_spread(prior: jax.Array, posterior: jax.Array, alpha) -> jax.Array:
+    """RTPS: x'_a <- x'_a [alpha (sigma_b - sigma_a) / sigma_a + 1] per variable; (N, n) each."""
+    mean = posterior.mean(axis=0)
+    sigma_a = jnp.std(posterior, axis=0, ddof=1)
+    sigma_b = jnp.std(prior, axis=0, ddof=1)
+    # A variable with no posterior spread has nothing to scale; leave it.
+    factor = jnp.where(sigma_a > 0, alpha * (sigma_b - sigma_a) / jnp.where(sigma_a > 0, sigma_a, 1.0) + 1.0, 1.0)
+    return mean + factor * (posterior - mean)
+
+
+PIECES = ("additive", "rtpp", "rtps")
+
+
+def with_inflation(update, pieces=frozenset()):
+    """Wrap ``update(key, prior, y, settings) -> (posterior, info)`` with the inflation pieces.
+
+    Multiplicative inflation (``settings["filter"]["inflation"]``) is always
+    applied; ``pieces`` names the others switched on for this job (a subset of
+    "additive", "rtpp", "rtps"). They are chosen when the job is built so a
+    job that does not use them does not pay for them; their strengths are
+    traced (``additive_std``, ``rtpp``, ``rtps``).
+    """
+    unknown = set(pieces) - set(PIECES)
+    if unknown:
+        raise ValueError(f"unknown inflation pieces {sorted(unknown)}; known: {PIECES}")
+
+    def analyse(key, members, y, settings):
+        f = settings["filter"]
+        prior = inflate_anomalies(members, f["inflation"])
+        update_key = key
+        if "additive" in pieces:  # split only when needed: a split costs a threefry call per cycle
+            noise_key, update_key = jax.random.split(key)
+            prior = add_centred_noise(noise_key, prior, f["additive_std"])
+        posterior, info = update(update_key, prior, y, settings)
+        if "rtpp" in pieces:
+            posterior = relax_to_prior_perturbations(prior, posterior, f["rtpp"])
+        if "rtps" in pieces:
+            posterior = relax_to_prior_spread(prior, posterior, f["rtps"])
+        return posterior, info
+
+    return analyse
+
+
+def ensemble_filter(name: str, members: int, update, pieces=frozenset(), reports_inflation: bool = False) -> Filter:
+    """A Filter from ``update(key, prior, y, settings) -> (posterior, info)`` on (N, n) arrays,
+    with every inflation piece of this module composed around it."""
+    analyse_members = with_inflation(update, pieces)
+
+    def analyse(key, state, y, settings):
+        posterior, info = analyse_members(key, state.members, y, settings)
+        return EnsembleState(members=posterior), info
+
+    return Filter(name=name, members=members, init=keep_ensemble, analyse=analyse,
+                  reports_inflation=reports_inflation)
+
+
+@dataclass
+class InflationConfig:
+    """Ensemble size and the inflation pieces shared by every ensemble Kalman filter.
+
+    inflation multiplies the prior anomalies; additive_std is the standard
+    deviation of centred additive noise (state units); rtpp and rtps are the
+    relaxation coefficients to prior perturbations and to prior spread (0: off).
+    """
+
+    members: int = 20
+    inflation: float = 1.03
+    additive_std: float = 0.0
+    rtpp: float = 0.0
+    rtps: float = 0.0
+
+
+# The traced keys of the pieces (lane keys); the last three are built from their largest lane
+# value, so a piece is switched on when any lane uses it.
+INFLATION_KEYS = ("inflation", "additive_std", "rtpp", "rtps")
+WIDEST = ("additive_std", "rtpp", "rtps")
+
+
+def check_inflation(c: NodeChecks) -> None:
+    """Ranges of the members and the inflation pieces."""
+    c.integer("members", 2, "an integer >= 2")
+    c.real("inflation", "a finite factor >= 1 (1 = no inflation)", minimum=1.0, strict=False)
+    c.real("additive_std", "a finite standard deviation >= 0 (0 = off)", minimum=0.0, strict=False)
+    c.in_range("rtpp", 0.0, 1.0, "a coefficient from 0 (off) to 1")
+    c.in_range("rtps", 0.0, 2.0, "a coefficient from 0 (off) to 2")
+
+
+def inflation_pieces(node) -> frozenset:
+    """The optional pieces switched on for this job: those whose strength is not 0."""
+    return frozenset(piece for piece, key in (("additive", "additive_std"), ("rtpp", "rtpp"), ("rtps", "rtps"))
+                     if float(node[key]) != 0.0)
+
+
+def inflation_settings(node) -> dict:
+    return floats(node, INFLATION_KEYS)
+
+
+# The spec fields of an ensemble filter whose only settings are the inflation pieces.
+INFLATION_SPEC_FIELDS = {"settings": inflation_settings, "check": lambda c, model: check_inflation(c),
+                         "traced": INFLATION_KEYS, "widest": WIDEST}

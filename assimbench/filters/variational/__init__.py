@@ -1,0 +1,1 @@
+"""Variational analyses: 3D-Var and strong-constraint 4D-Var."""

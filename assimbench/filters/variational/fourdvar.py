@@ -1,0 +1,180 @@
+"""Strong-constraint 4D-Var over a sliding window, with the adjoint by JAX reverse mode.
+
+For a window of W analysis intervals starting at t_0 with background x_b, the
+cost of the initial state x_0 is (Le Dimet & Talagrand 1986; Courtier,
+Thepaut & Hollingsworth 1994, Q. J. R. Meteorol. Soc. 120)
+
+    J(x_0) = 1/2 (x_0 - x_b)^T B^-1 (x_0 - x_b)
+             + 1/2 sum_{j=1..W} m_j (y_j - h(M_j(x_0)))^T R^-1 (y_j - h(M_j(x_0))),
+
+M_j the model over j intervals, m_j = 1 for the observations the window
+holds (0 while it fills during the first W - 1 cycles), B = b_scale x the
+forecast model's climatological covariance, R = error_std^2 I. With the
+control variable x_0 = x_b + L v (B = L L^T, Cholesky) the cost is
+J(v) = |v|^2 / 2 + |e(v)|^2 / 2 for the scaled residuals e. It is minimised
+by ``iterations`` Gauss-Newton steps, each solving (I + E^T E) dv = -grad J
+with ``inner_iterations`` of conjugate gradients: E u by forward mode (the
+tangent linear model, ``jax.jvp``), E^T z by reverse mode (the adjoint,
+``jax.vjp``), and grad J = v + E^T e by reverse mode. Everything stays in jit
+with fixed iteration counts.
+
+Cycling: the window ends at the current cycle k. The analysis at k is
+M_W(x_0*) (M_m while the window holds only m < W observations); the window
+then slides by one interval, with the background of its new start
+M_1(x_0*), the analysed trajectory (a sliding, overlapping window).
+"""
+
+from dataclasses import dataclass
+from typing import NamedTuple
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+from assimbench.config.spec import FilterSpec, floats
+from assimbench.filters.base import Filter
+from assimbench.filters.variational.threedvar import check_b_scale
+from assimbench.integrators import make_model_flow
+from assimbench.models.climatology import climatology
+
+
+class FourDVarState(NamedTuple):
+    """members (1, n) the current estimate; start (n,) background at the window start; shifted
+    (n,) M_1 of the last analysed start; obs (W, p) the window's observations, oldest first;
+    filled how many of them are real (int32)."""
+
+    members: jax.Array
+    start: jax.Array
+    shifted: jax.Array
+    obs: jax.Array
+    filled: jax.Array
+
+
+def window_residuals(v, background, factor, obs, mask, error_std, advance, h, params):
+    """Scaled residuals e(v) (W, p): m_j (h(M_j(x_b + L v)) - y_j) / error_std; factor = L (n, n)."""
+    x0 = background + factor @ v
+
+    def step(x, _):
+        x = advance(x, params)
+        return x, h(x)
+
+    _, predicted = jax.lax.scan(step, x0, None, length=obs.shape[0])
+    return mask[:, None] * (predicted - obs) / error_std
+
+
+def window_cost(v, *args):
+    """J(v) = |v|^2 / 2 + |e(v)|^2 / 2 (see the module docstring); args as for window_residuals."""
+    e = window_residuals(v, *args)
+    return 0.5 * v @ v + 0.5 * jnp.sum(e**2)
+
+
+def conjugate_gradients(apply, rhs, iterations: int):
+    """x with apply(x) = rhs for a symmetric positive definite ``apply``, from x = 0, fixed iterations
+    (Hestenes & Stiefel 1952). A converged residual stops changing x (guarded divisions)."""
+
+    def body(carry, _):
+        x, r, p, rr = carry
+        ap = apply(p)
+        curvature = p @ ap
+        alpha = jnp.where(curvature > 0, rr / jnp.where(curvature > 0, curvature, 1.0), 0.0)
+        x = x + alpha * p
+        r = r - alpha * ap
+        rr_new = r @ r
+        beta = jnp.where(rr > 0, rr_new / jnp.where(rr > 0, rr, 1.0), 0.0)
+        return (x, r, r + beta * p, rr_new), None
+
+    zero = jnp.zeros_like(rhs)
+    (x, _, _, _), _ = jax.lax.scan(body, (zero, rhs, rhs, rhs @ rhs), None, length=iterations)
+    return x
+
+
+def minimise_window(background, factor, obs, mask, error_std, advance, h, params, iterations, inner_iterations):
+    """v* after the Gauss-Newton-CG iterations (module docstring), starting from v = 0."""
+    args = (background, factor, obs, mask, error_std, advance, h, params)
+
+    def outer(v, _):
+        residual = lambda u: window_residuals(u, *args)
+        e, adjoint = jax.vjp(residual, v)
+        gradient = v + adjoint(e)[0]
+
+        def hessian(u):  # (I + E^T E) u: tangent linear then adjoint
+            return u + adjoint(jax.jvp(residual, (v,), (u,))[1])[0]
+
+        return v + conjugate_gradients(hessian, -gradient, inner_iterations), None
+
+    v, _ = jax.lax.scan(outer, jnp.zeros(background.shape[0]), None, length=iterations)
+    return v
+
+
+def make_4dvar(model, operator, climate_cov, window: int, iterations: int, inner_iterations: int,
+               steps_per_interval: int) -> Filter:
+    """Sliding-window strong-constraint 4D-Var with the forecast ``model``; ``settings["filter"]["b_scale"]``
+    multiplies the climatological covariance (n, n)."""
+
+    advance = make_model_flow(model, steps_per_interval)
+    # Cholesky factor of the climatological covariance; B = b_scale C, so L = sqrt(b_scale) L_C.
+    climate_factor = jnp.asarray(np.linalg.cholesky(np.asarray(climate_cov)))
+    p = operator.size
+
+    def init(key, initial_ensemble, settings):
+        del key, settings
+        mean = initial_ensemble.mean(axis=0)
+        return FourDVarState(members=mean[None, :], start=mean, shifted=mean,
+                             obs=jnp.zeros((window, p)), filled=jnp.asarray(0, dtype=jnp.int32))
+
+    def analyse(key, state, y, settings):
+        del key
+        full = state.filled == window
+        start = jnp.where(full, state.shifted, state.start)
+        obs = jnp.where(full, jnp.roll(state.obs, -1, axis=0).at[-1].set(y), state.obs.at[state.filled].set(y))
+        filled = jnp.minimum(state.filled + 1, window)
+        mask = (jnp.arange(window) < filled).astype(jnp.float64)
+        factor = jnp.sqrt(settings["filter"]["b_scale"]) * climate_factor
+        error_std = settings["observation"]["error_std"]
+        params = settings["forecast_model"]
+        v = minimise_window(start, factor, obs, mask, error_std, advance, operator, params, iterations,
+                            inner_iterations)
+        x0 = start + factor @ v
+        trajectory = jax.lax.scan(lambda x, _: (advance(x, params),) * 2, x0, None, length=window)[1]
+        analysis = trajectory[filled - 1]
+        new_state = FourDVarState(members=analysis[None, :], start=start, shifted=trajectory[0], obs=obs,
+                                  filled=filled)
+        return new_state, {}
+
+    return Filter(name="4dvar", members=1, init=init, analyse=analyse)
+
+
+@dataclass
+class FourDVarConfig:
+    """Strong-constraint 4D-Var over a sliding window of ``window`` analysis intervals; B as for
+    3D-Var; ``iterations`` Gauss-Newton steps of ``inner_iterations`` conjugate gradients each."""
+
+    name: str = "4dvar"
+    b_scale: float = 0.1
+    window: int = 5
+    iterations: int = 3
+    inner_iterations: int = 10
+
+
+def _check(c, model) -> None:
+    check_b_scale(c)
+    c.integer("iterations", 1, "an integer >= 1")
+    c.integer("inner_iterations", 1, "an integer >= 1 (conjugate-gradient steps)")
+    c.integer("window", 1, "an integer >= 1 (analysis intervals)")
+
+
+def _build(node, ctx) -> Filter:
+    return make_4dvar(ctx.model, ctx.operator, climatology(ctx.model)[1], int(node.window), int(node.iterations),
+                      int(node.inner_iterations), ctx.steps_per_interval)
+
+
+SPEC = FilterSpec(
+    name="4dvar",
+    schema=FourDVarConfig,
+    build=_build,
+    settings=lambda node: floats(node, ("b_scale",)),
+    check=_check,
+    traced=("b_scale",),
+    members=lambda node: 1,
+    climatology=True,
+)

@@ -1,0 +1,1 @@
+"""Files: atomic write-then-rename, result files, spectrum files, provenance."""

@@ -1,0 +1,1 @@
+"""Chaotic benchmark models: one module per model family, each ending in its spec."""

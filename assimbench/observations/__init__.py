@@ -1,0 +1,1 @@
+"""Observation networks and operators (noise levels are traced settings, not part of an operator)."""

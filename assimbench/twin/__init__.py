@@ -1,0 +1,1 @@
+"""The twin experiment: cycling programs, diagnostics, summaries, and the runner that feeds chunks to sinks."""

@@ -1,0 +1,207 @@
+"""The runner: compiled chunks of cycles fed to sinks.
+
+:func:`run_plan` compiles the start-up and the chunk program of a plan once,
+then runs the chunks in order and hands each one to every sink: the time
+means, the divergence monitor, the result writer, the progress callback. The
+batch axis inside a run is lanes x replicates, lane-major; :class:`Batch`
+reshapes it to (lane, replicate) in this one place, for the writer and for
+the result.
+"""
+
+import time
+from collections.abc import Callable
+from typing import NamedTuple
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+from omegaconf import OmegaConf
+
+from assimbench.io.result_writer import ResultWriter
+from assimbench.io.results import Result
+from assimbench.twin.cycling import make_chunk, make_start, replicate_keys
+from assimbench.twin.summaries import TimeMeans, update_lost_runs
+
+
+class Batch(NamedTuple):
+    """The flat batch of a run: ``lanes`` x ``replicates``, lane-major; ``split`` gives arrays their
+    (lane, replicate) axes when the run has lanes (``batched``), and leaves them as (replicate,) otherwise."""
+
+    lanes: int
+    replicates: int
+    batched: bool
+
+    @property
+    def size(self) -> int:
+        return self.lanes * self.replicates
+
+    def split(self, values) -> np.ndarray:
+        values = np.asarray(values)
+        return values.reshape((self.lanes, self.replicates) + values.shape[1:]) if self.batched else values
+
+
+class Chunk(NamedTuple):
+    """One chunk's output: cycles first_cycle .. first_cycle + length - 1; series name -> (batch, length, ...)
+    (the stored ensemble: (batch, snapshots, ...)); snapshots: the cycles of the stored ensembles."""
+
+    first_cycle: int
+    length: int
+    series: dict
+    snapshots: np.ndarray
+
+
+class MeansSink:
+    """Time means after burn-in (with batch-means intervals) and, if asked, the whole series in memory."""
+
+    def __init__(self, plan, names: list, keep_series: bool):
+        self.means = TimeMeans(plan.lanes * plan.replicates, plan.cycles, plan.burn_in)
+        self.names = names
+        self.kept = {name: [] for name in names} if keep_series else None
+
+    def add(self, chunk: Chunk) -> None:
+        for name in self.names:
+            self.means.add(name, chunk.series[name], chunk.first_cycle)
+            if self.kept is not None:
+                self.kept[name].append(chunk.series[name])
+
+    def series(self) -> dict:
+        return {name: np.concatenate(parts, axis=1) for name, parts in self.kept.items()} if self.kept else {}
+
+
+class DivergenceMonitor:
+    """The first diverged cycle of every run: any value not finite, or a lost filter (analysis RMSE
+    above the threshold for ``patience`` consecutive cycles; a brief excursion is a result)."""
+
+    def __init__(self, plan, scalar_names: list):
+        batch = plan.lanes * plan.replicates
+        self.threshold = np.repeat(plan.thresholds, plan.replicates)[:, None]
+        self.patience = plan.patience
+        self.scalar_names = scalar_names
+        self.first_bad = np.full(batch, -1, dtype=np.int64)
+        self.open_runs = np.zeros(batch, dtype=np.int64)
+
+    def add(self, chunk: Chunk) -> None:
+        broken = np.zeros((self.first_bad.size, chunk.length), dtype=bool)
+        for name in self.scalar_names:
+            broken |= ~np.isfinite(chunk.series[name])
+        newly = (self.first_bad < 0) & broken.any(axis=1)
+        self.first_bad[newly] = chunk.first_cycle + np.argmax(broken[newly], axis=1)
+        above = chunk.series["rmse_analysis"] > self.threshold
+        hit, start, self.open_runs = update_lost_runs(above, self.open_runs, self.patience)
+        newly = (self.first_bad < 0) & (hit >= 0)
+        self.first_bad[newly] = chunk.first_cycle + start[newly]
+
+
+class WriterSink:
+    """Appends every chunk to the result file (through its temporary name)."""
+
+    def __init__(self, plan, output: str, batch: Batch):
+        self.batch = batch
+        self.writer = ResultWriter(output, plan.replicates, plan.interval, plan.layouts, plan.coordinates, plan.attrs,
+                                   plan.grid.coordinates() or None)
+
+    def add(self, chunk: Chunk) -> None:
+        self.writer.append({name: self.batch.split(v) for name, v in chunk.series.items()}, chunk.snapshots)
+
+
+class ProgressSink(NamedTuple):
+    """Calls ``progress(done, total)`` after every chunk."""
+
+    progress: Callable
+    total: int
+
+    def add(self, chunk: Chunk) -> None:
+        self.progress(chunk.first_cycle + chunk.length - 1, self.total)
+
+
+def compile_programs(plan):
+    """(start carry, compiled chunk, keys, compile seconds) of a plan: one compilation of each program."""
+    tic = time.perf_counter()
+    keys = jnp.tile(replicate_keys(plan.seed, plan.replicates), (plan.lanes, 1))
+    length = min(plan.chunk_cycles, plan.cycles)
+    start = make_start(plan.setup, plan.batched).lower(keys, plan.settings).compile()
+    carry = start(keys, plan.settings)
+    first = jnp.asarray(1, dtype=jnp.int64)
+    chunk = make_chunk(plan.setup, length, plan.batched).lower(carry, keys, first, plan.settings).compile()
+    return carry, chunk, keys, time.perf_counter() - tic
+
+
+def _chunks(plan, carry, chunk, keys, clock: list):
+    """Yield every Chunk of the run in cycle order; ``clock[0]`` accumulates the seconds spent cycling."""
+    length = min(plan.chunk_cycles, plan.cycles)
+    every = plan.ensemble_every
+    for first_cycle in range(1, plan.cycles + 1, length):
+        tic = time.perf_counter()
+        carry, out = chunk(carry, keys, jnp.asarray(first_cycle, dtype=jnp.int64), plan.settings)
+        out = jax.device_get(out)
+        clock[0] += time.perf_counter() - tic
+        keep = min(length, plan.cycles - first_cycle + 1)  # the last chunk may run past the end
+        out = {name: np.asarray(values[:, :keep]) for name, values in out.items()}
+        cycles = first_cycle + np.arange(keep)
+        snapshots = cycles[cycles % every == 0] if every else np.array([], dtype=np.int64)
+        if "analysis_ensemble" in out:
+            out["analysis_ensemble"] = out["analysis_ensemble"][:, snapshots - first_cycle]
+        yield Chunk(first_cycle, keep, out, snapshots)
+
+
+def _summaries(plan, means: MeansSink, scalar_names: list, batch: Batch) -> tuple:
+    """(summary, per_replicate): time means over replicates with intervals, and per replicate."""
+    summary, per_replicate = {}, {}
+    for name in scalar_names:
+        stats = means.means.summarise_groups(name, plan.lanes)
+        summary.update({name: stats["mean"], name + "_low": stats["low"], name + "_high": stats["high"]})
+        per_replicate[name] = batch.split(stats["per_replicate"])
+        per_replicate[name + "_halfwidth"] = batch.split(stats["per_replicate_halfwidth"])
+    for when in ("forecast", "analysis"):
+        summary[f"spread_skill_ratio_{when}"] = summary[f"spread_{when}"] / summary[f"rmse_{when}"]
+    if not plan.batched:
+        summary = {name: float(value[0]) for name, value in summary.items()}
+    return summary, per_replicate
+
+
+def run_plan(plan, output: str | None = None, progress: Callable | None = None, keep_series: bool = True,
+             started: float | None = None) -> Result:
+    """Run a plan; write ``output`` (HDF5) if given. ``started``: when the caller began (for the
+    start-up time: checks, building, climatology and compilation)."""
+    started = time.perf_counter() if started is None else started
+    batch = Batch(plan.lanes, plan.replicates, plan.batched)
+    scalar_names = [n for n, lay in plan.layouts.items() if lay.dims == ("replicate", "cycle")]
+    count_names = [n for n, lay in plan.layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "rank"]
+    carry, chunk, keys, compile_seconds = compile_programs(plan)
+    startup_seconds = time.perf_counter() - started
+    means = MeansSink(plan, scalar_names + count_names, keep_series)
+    monitor = DivergenceMonitor(plan, scalar_names)
+    sinks = [means, monitor]
+    writer = WriterSink(plan, output, batch) if output is not None else None
+    sinks += [writer] if writer else []
+    sinks += [ProgressSink(progress, plan.cycles)] if progress else []
+    clock = [0.0]
+    try:
+        for piece in _chunks(plan, carry, chunk, keys, clock):
+            for sink in sinks:
+                sink.add(piece)
+        summary, per_replicate = _summaries(plan, means, scalar_names, batch)
+        first_bad = batch.split(monitor.first_bad)
+        finish = {
+            "diverged": bool(np.any(first_bad >= 0)),
+            "burn_in": plan.burn_in,
+            "divergence_threshold": float(plan.thresholds[0]) if plan.lanes == 1 else plan.thresholds,
+            "divergence_patience": plan.patience,
+            "interval_method": "batch means, 20 batches after burn-in, Student t 95%",
+            "compile_seconds": compile_seconds,
+            "startup_seconds": startup_seconds,
+            "run_seconds": clock[0],
+        }
+        result = Result(
+            config=OmegaConf.to_container(plan.config, resolve=True), summary=summary, per_replicate=per_replicate,
+            totals={name: batch.split(means.means.totals(name)) for name in count_names}, first_bad_cycle=first_bad,
+            attrs={**plan.attrs, **finish}, series={n: batch.split(v) for n, v in means.series().items()},
+            lanes=plan.grid.coordinates(), layouts=plan.layouts, coordinates=plan.coordinates,
+        )
+        if writer is not None:
+            result.path = writer.writer.finish(summary, per_replicate, result.totals, first_bad, finish)
+    except BaseException:
+        if writer is not None:
+            writer.writer.close_incomplete()
+        raise
+    return result

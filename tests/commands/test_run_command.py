@@ -1,0 +1,203 @@
+"""The command line: the demo end to end, a multirun, and bad input refused in one line."""
+
+import os
+import subprocess
+import sys
+
+import h5py
+import pytest
+
+from assimbench.commands import run as cli
+from assimbench.config.catalogue import catalogue
+
+SMALL = ["cycles=30", "burn_in=5", "model.size=10", "filter.members=6"]
+
+
+def _command():
+    script = os.path.join(os.path.dirname(sys.executable), "assimbench")
+    return [script] if os.path.exists(script) else [sys.executable, "-m", "assimbench"]
+
+
+def _run(args, cwd):
+    return subprocess.run(_command() + list(args), cwd=cwd, capture_output=True, text=True, timeout=600)
+
+
+# (override, words the one-line message must contain)
+BAD_INPUT = [
+    (["model=lorenz99"], ["model=lorenz99", "lorenz63, lorenz96"]),
+    (["filter=kalman"], ["filter=kalman", ", ".join(sorted(catalogue().filters))]),  # every filter is offered
+    (["observation=nowhere"], ["observation=nowhere", "every_station"]),
+    (["cycles=abc"], ["cycles", "Integer"]),
+    (["filter.members=ten"], ["filter.members", "Integer"]),
+    (["filter.inflation=large"], ["filter.inflation", "Float"]),
+    (["filter.members=1"], ["filter.members=1", ">= 2"]),
+    (["filter.inflation=0.9"], ["filter.inflation=0.9", ">= 1"]),
+    (["observation.error_std=0"], ["observation.error_std", "> 0"]),
+    (["observation.error_std=-1"], ["observation.error_std", "> 0"]),
+    (["observation.interval=0.055"], ["observation.interval", "multiple", "model.dt"]),
+    (["observation.interval=0"], ["observation.interval", "> 0"]),
+    (["burn_in=3000"], ["burn_in=3000", "cycles - 1"]),
+    (["cycles=0"], ["cycles=0", ">= 1"]),
+    (["observation.stride=41"], ["observation.stride=41", "40"]),
+    (["model=lorenz63", "observation.stride=4"], ["observation.stride=4", "3"]),
+    (["model.size=3"], ["model.size=3", ">= 4"]),
+    (["model.dt=-0.01"], ["model.dt", "> 0"]),
+    (["model.forcing=nan"], ["model.forcing", "finite"]),
+    (["replicates=0"], ["replicates=0", ">= 1"]),
+    (["seed=-1"], ["seed=-1", "2**32"]),
+    (["initial_spread=-1"], ["initial_spread", ">= 0"]),
+    (["model.sise=50"], ["model.sise", "did you mean model.size"]),
+    (["filter.inflaton=1.1"], ["filter.inflaton", "did you mean filter.inflation"]),
+    (["cylces=10"], ["cylces", "did you mean cycles"]),
+    (["filter.members=10,20"], ["filter.members=10,20", "--multirun"]),
+    (["cycles=["], ["cycles=[", "key=value"]),
+    (["-m", "filter.members=10,1"], ["filter.members=1", ">= 2"]),
+    (["filter=letkf", "filter.radius=0"], ["filter.radius", "> 0"]),
+    (["filter=ensrf", "filter.radius=-2"], ["filter.radius", "> 0"]),
+    (["model=lorenz63", "filter=letkf"], ["filter.radius", "null", "lorenz63"]),
+    (["filter=sir", "filter.jitter=-0.1"], ["filter.jitter", ">= 0"]),
+    (["filter=sir", "filter.ess_threshold=0"], ["filter.ess_threshold", "(0, 1]"]),
+    (["filter=sir", "filter.ess_threshold=1.5"], ["filter.ess_threshold", "(0, 1]"]),
+    (["filter=3dvar", "filter.b_scale=0"], ["filter.b_scale", "> 0"]),
+    (["filter=3dvar", "filter.iterations=0"], ["filter.iterations", ">= 1"]),
+    (["filter.rtpp=1.5"], ["filter.rtpp", "0 (off) to 1"]),
+    (["filter.rtps=-1"], ["filter.rtps", "0 (off) to 2"]),
+    (["filter.additive_std=-0.1"], ["filter.additive_std", ">= 0"]),
+    (["observation.transform=cube"], ["observation.transform", "identity, absolute, square"]),
+    (["filter=3dvar", "filter.members=5"], ["filter.members", "not a key"]),
+    (["filter=3dvar", "diagnostics=[rank_histogram]"], ["diagnostics", "rank_histogram", "3dvar can give only"]),
+    (["diagnostics=[brier]"], ["diagnostics", "brier", "crps"]),
+    (["filter=etkf", "diagnostics=[ess]"], ["diagnostics", "ess", "etkf can give only"]),
+    (["store.ensemble_every=-1"], ["store.ensemble_every", ">= 0"]),
+    (["divergence_patience=0"], ["divergence_patience", ">= 1"]),
+    (["divergence_factor=0"], ["divergence_factor", "> 0"]),
+    (["lanes.filter.members=[10,20]"], ["lanes.filter.members", "--multirun", "filter.members=10,20"]),
+    (["lanes.filter.inflation=[1.1,0.5]"], ["lanes.filter.inflation=0.5", ">= 1"]),
+    (["lanes.filter.radius=[2.0]"], ["lanes.filter.radius", "no setting radius"]),
+    (["forecast_model=nowhere"], ["forecast_model=nowhere", "lorenz96_closure", "same"]),
+    (["forecast_model=lorenz96", "forecast_model.size=30"], ["forecast_model", "truth's 40 resolved", "30"]),
+    (["forecast_model=lorenz63"], ["forecast_model", "truth's 40 resolved", "3 variables"]),
+    (["model=lorenz96_two_scale", "forecast_model=lorenz96"], ["forecast_model", "36 resolved", "or all its 396"]),
+    (["model=lorenz63", "forecast_model=lorenz96_closure"], ["forecast_model", "Lorenz-96 ring", "lorenz63"]),
+    (["forecast_model=lorenz96", "forecast_model.dt=0.02"], ["observation.interval", "forecast_model.dt=0.02"]),
+    (["model=lorenz96_two_scale", "forecast_model=lorenz96_closure", "forecast_model.degree=9"],
+     ["forecast_model.degree=9", "0 to 6"]),
+    (["model=lorenz96_two_scale", "filter=letkf"], ["filter.radius", "null", "lorenz96_two_scale"]),
+    (["model=lorenz96_two_scale", "model.slow=3"], ["model.slow=3", ">= 4"]),
+    (["model=kuramoto_sivashinsky", "model.length=0"], ["model.length", "> 0"]),
+    (["truth_noise_std=-1"], ["truth_noise_std", ">= 0"]),
+    (["filter=4dvar", "filter.window=0"], ["filter.window=0", ">= 1"]),
+    (["filter=4dvar", "filter.iterations=0"], ["filter.iterations=0", ">= 1"]),
+    (["filter=4dvar", "filter.inner_iterations=0"], ["filter.inner_iterations=0", ">= 1"]),
+    (["filter.adaptive=true", "filter.adaptive_min=1.5", "filter.adaptive_max=1.2"],
+     ["filter.adaptive_max=1.2", "bounds reversed"]),
+    (["filter.adaptive=true", "filter.adaptive_std=0"], ["filter.adaptive_std", "> 0"]),
+    (["filter.adaptive=true", "filter.inflation=2.5"], ["filter.inflation=2.5", "[adaptive_min, adaptive_max]"]),
+    (["filter=enkfn", "filter.prior_extra_count=2"], ["filter.prior_extra_count=2", "Bocquet"]),
+    (["lanes.forecast_model.forcing=[7,8]"], ["lanes.forecast_model.forcing", "forecast_model same", "none"]),
+    (["forecast_model=lorenz96", "filter=3dvar", "lanes.forecast_model.forcing=[7,8]"],
+     ["lanes.forecast_model.forcing", "3dvar", "climatology"]),
+]
+
+
+@pytest.mark.parametrize("args, words", BAD_INPUT, ids=[" ".join(a) for a, _ in BAD_INPUT])
+def test_bad_input_is_one_line_exit_two_and_nothing_written(args, words, tmp_path, monkeypatch, capsys):
+    monkeypatch.chdir(tmp_path)
+    status = cli.main(args)
+    captured = capsys.readouterr()
+    assert status == 2
+    lines = captured.err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("assimbench: error: "), captured.err
+    for word in words:
+        assert word in lines[0], (word, lines[0])
+    assert captured.out == ""
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_bad_input_from_the_console_script_exits_two_without_traceback(tmp_path):
+    done = _run(["filter.members=1"], tmp_path)
+    assert done.returncode == 2
+    assert done.stderr.strip().count("\n") == 0 and "Traceback" not in done.stderr
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_the_demo_runs_end_to_end_with_no_arguments(tmp_path):
+    """`assimbench` alone: the 40-station ring, 20-member ETKF; prints a summary and the file path."""
+    done = _run([], tmp_path)
+    assert done.returncode == 0, done.stderr
+    out = done.stdout
+    assert "RMSE" in out and "spread" in out and "result:" in out
+    path = out.split("result:")[1].split()[0]
+    assert os.path.isfile(path) and path.startswith(str(tmp_path))
+    with h5py.File(path, "r") as f:
+        assert f.attrs["complete"]
+        assert 0.15 < f["summary"].attrs["rmse_analysis"] < 0.22  # published band, see test_cycling
+        assert f["rmse_analysis"].shape == (1, 3000)
+
+
+def test_an_absolute_output_path_is_used_as_given(tmp_path):
+    target = tmp_path / "here" / "mine.h5"
+    done = _run(SMALL + [f"output={target}"], tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert target.is_file()
+
+
+def _members_of(path):
+    with h5py.File(path, "r") as f:
+        assert f.attrs["complete"]
+        return f.attrs["config"].split("members: ")[1].split()[0]
+
+
+SWEEP = ["-m", "filter.members=5,7", "filter.inflation=1.02,1.1"] + SMALL[:-1] + ["hydra.sweep.dir=sweeps/study"]
+
+
+def test_a_multirun_writes_one_file_per_job_and_a_rerun_resumes(tmp_path):
+    """Basic launcher; the second identical command skips finished jobs and redoes the others."""
+    done = _run(SWEEP, tmp_path)
+    assert done.returncode == 0, done.stderr
+    files = sorted((tmp_path / "sweeps" / "study").glob("*/result.h5"))
+    assert len(files) == 4
+    assert {_members_of(p) for p in files} == {"5", "7"}
+    assert "filter.inflation=1.02,filter.members=5" in str(files[0])  # a job's folder names its overrides
+    missing, incomplete, kept = files[0], files[1], files[2:]
+    missing.unlink()
+    with h5py.File(incomplete, "r+") as f:
+        f.attrs["complete"] = False
+    stamps = [p.stat().st_mtime_ns for p in kept]
+    again = _run(SWEEP, tmp_path)
+    assert again.returncode == 0, again.stderr
+    assert "2 of 4 jobs already have a complete result" in again.stderr
+    assert again.stdout.count("skipped:") == 2
+    assert [p.stat().st_mtime_ns for p in kept] == stamps
+    assert missing.is_file() and _members_of(incomplete) in {"5", "7"}
+
+
+def test_a_complete_result_of_another_config_is_never_overwritten(tmp_path):
+    target = tmp_path / "mine.h5"
+    assert _run(SMALL + [f"output={target}"], tmp_path).returncode == 0
+    before = target.read_bytes()
+    done = _run(SMALL + ["filter.inflation=1.2", f"output={target}"], tmp_path)
+    assert done.returncode == 2 and "another config" in done.stderr and "not overwritten" in done.stderr
+    assert target.read_bytes() == before
+
+
+def test_the_joblib_launcher_runs_jobs_in_parallel_processes(tmp_path):
+    pytest.importorskip("hydra_plugins.hydra_joblib_launcher")
+    done = _run(["-m", "filter.members=5,7"] + SMALL[:-1] + ["hydra/launcher=joblib", "hydra.sweep.dir=sweeps/j"], tmp_path)
+    assert done.returncode == 0, done.stderr
+    files = sorted((tmp_path / "sweeps" / "j").glob("*/result.h5"))
+    assert {_members_of(p) for p in files} == {"5", "7"}
+
+
+def test_the_submitit_launcher_in_local_mode_runs_a_job_end_to_end(tmp_path):
+    pytest.importorskip("hydra_plugins.hydra_submitit_launcher")
+    done = _run(["-m", "filter.members=5"] + SMALL[:-1] + ["hydra/launcher=submitit_local", "hydra.sweep.dir=sweeps/s"],
+                tmp_path)
+    assert done.returncode == 0, done.stderr
+    files = sorted((tmp_path / "sweeps" / "s").glob("*/result.h5"))
+    assert len(files) == 1 and _members_of(files[0]) == "5"
+
+
+def test_the_progress_bar_stays_quiet_when_stderr_is_not_a_terminal(tmp_path):
+    done = _run(SMALL + ["chunk_cycles=10"], tmp_path)
+    assert done.returncode == 0 and done.stderr == ""
