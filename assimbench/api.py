@@ -40,8 +40,8 @@ def run_experiment(
 
 
 def run(overrides=(), output: str | None = None) -> Result:
-    """Compose the config from ``overrides`` and run it; see :func:`run_experiment`."""
-    return run_experiment(compose_config(overrides), output=output)
+    """Compose the config from ``overrides`` and run it; see :func:`run_experiment` (which checks it, once)."""
+    return run_experiment(compose_config(overrides, validate=False), output=output)
 
 
 __all__ = ["Result", "compose_config", "run", "run_experiment"]

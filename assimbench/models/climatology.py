@@ -2,12 +2,14 @@
 
 Used by 3D-Var and 4D-Var (B = b_scale x climatological covariance), by the
 climatology reference run, by the divergence rule and by fitted closures. One
-draw per model setting: SAMPLES states SPACING apart after the model's spin-up
-from its first guess, kept in memory for the process. The sampling program
-takes the model's parameters as traced arguments, so it is compiled once per
-model's static parts (name, size, step, resolved variables, static choices)
-and serves every parameter setting and every lane (a fraction of a second of
-sampling for Lorenz-96 n=40).
+trajectory per model setting: states SPACING apart after the model's spin-up
+from its first guess, drawn in blocks of BLOCK states and extended only as far
+as a user needs (the divergence rule and the closure fit use the first block,
+the covariance of B all SAMPLES), so every user sees a prefix of the same
+draw. The programs take the model's parameters as traced arguments, so they
+are compiled once per model's static parts (name, size, step, resolved
+variables, static choices) and serve every parameter setting and every lane.
+The trajectories are kept for the most recent settings only (bounded caches).
 """
 
 from collections import OrderedDict
@@ -19,7 +21,8 @@ import numpy as np
 from assimbench.integrators import make_model_flow
 from assimbench.models.base import Model
 
-SAMPLES = 20000
+BLOCK = 4000
+SAMPLES = 5 * BLOCK
 SPACING = 0.1  # nearly independent on Lorenz-96: its decorrelation time is a few tenths (from memory)
 SEED = 0
 
@@ -45,7 +48,7 @@ class BoundedCache:
 
 
 _PROGRAMS = BoundedCache(16)
-_SAMPLES = BoundedCache(8)
+_TRAJECTORIES = BoundedCache(8)
 _MOMENTS = BoundedCache(32)
 
 
@@ -60,30 +63,34 @@ def model_key(model: Model) -> tuple:
     return (*static_key(model), params)
 
 
-def _sampler(model: Model):
-    """The jitted ``trajectory(key, params) -> (SAMPLES, n)`` of models with this static key."""
+def _programs(model: Model) -> tuple:
+    """The jitted ``start(rng, params) -> x0`` (spin-up from the first guess) and ``block(x, params) ->
+    (x_end, (BLOCK, n) states)`` of models with this static key."""
 
     def make():
         spin = make_model_flow(model, max(1, round(model.spinup_time / model.dt)))
         step = make_model_flow(model, max(1, round(SPACING / model.dt)))
-
-        @jax.jit
-        def trajectory(rng, params):
-            x0 = spin(model.first_guess(rng, params), params)
-            return jax.lax.scan(lambda x, _: (step(x, params),) * 2, x0, None, length=SAMPLES)[1]
-
-        return trajectory
+        start = jax.jit(lambda rng, params: spin(model.first_guess(rng, params), params))
+        block = jax.jit(lambda x, params: jax.lax.scan(lambda y, _: (step(y, params),) * 2, x, None, length=BLOCK))
+        return start, block
 
     return _PROGRAMS.get(static_key(model), make)
 
 
-def attractor_samples(model: Model) -> np.ndarray:
-    """(SAMPLES, n) states SPACING apart on the attractor, with the model's default parameters (cached)."""
-    def make():
-        params = {k: jnp.asarray(v, dtype=jnp.float64) for k, v in model.params.items()}
-        return np.asarray(_sampler(model)(jax.random.PRNGKey(SEED), params))
-
-    return _SAMPLES.get(model_key(model), make)
+def attractor_samples(model: Model, samples: int = SAMPLES) -> np.ndarray:
+    """(samples, n) states SPACING apart on the attractor, with the model's default parameters: the first
+    ``samples`` (a multiple of BLOCK, at most SAMPLES) of the model's one trajectory (cached, extended
+    block by block when more are asked for)."""
+    if samples % BLOCK or not 0 < samples <= SAMPLES:
+        raise ValueError(f"samples must be a multiple of {BLOCK} up to {SAMPLES}, got {samples}")
+    params = {k: jnp.asarray(v, dtype=jnp.float64) for k, v in model.params.items()}
+    start, block = _programs(model)
+    trajectory = _TRAJECTORIES.get(model_key(model), lambda: {"end": start(jax.random.PRNGKey(SEED), params),
+                                                                "blocks": []})
+    while len(trajectory["blocks"]) * BLOCK < samples:
+        trajectory["end"], states = block(trajectory["end"], params)
+        trajectory["blocks"].append(np.asarray(states))
+    return np.concatenate(trajectory["blocks"][: samples // BLOCK])
 
 
 def climatology(model: Model):
@@ -96,6 +103,8 @@ def climatology(model: Model):
 
 
 def climate_std(model: Model) -> float:
-    """Climatological standard deviation of one resolved variable (mean over them): the divergence rule's scale."""
-    _, covariance = climatology(model)
+    """Climatological standard deviation of one resolved variable (mean over them) from the first block:
+    the divergence rule's scale, which needs no more."""
+    states = attractor_samples(model, BLOCK)
+    covariance = np.cov(states, rowvar=False).reshape(model.size, model.size)
     return float(np.sqrt(np.mean(np.diag(covariance)[: model.resolved_size])))

@@ -25,12 +25,12 @@ import numpy as np
 
 from assimbench.config.spec import DerivedModelSpec, ModelFacts, NodeChecks
 from assimbench.models.base import Model
-from assimbench.models.climatology import BoundedCache, attractor_samples, model_key
+from assimbench.models.climatology import BLOCK, BoundedCache, attractor_samples, model_key
 from assimbench.models.lorenz96 import lorenz96_tendency, make_lorenz96
 
-# States of the truth's climatological draw the fit uses: a least-squares fit of a few
-# coefficients to 4,000 states x all ring variables is converged (the first 4,000 of the draw).
-FIT_SAMPLES = 4000
+# States of the truth's climatological trajectory the fit uses: a least-squares fit of a few
+# coefficients to 4,000 states x all ring variables is converged (its first block).
+FIT_SAMPLES = BLOCK
 
 _FITS = BoundedCache(32)
 
@@ -49,7 +49,7 @@ def fit_closure(truth: Model, forcing: float, degree: int) -> np.ndarray:
     ``forcing`` is the forecast model's F (the closure absorbs any difference).
     """
     def fit():
-        states = attractor_samples(truth)[:FIT_SAMPLES]
+        states = attractor_samples(truth, FIT_SAMPLES)
         resolved = truth.resolved_size
         params = {k: jnp.asarray(v) for k, v in truth.params.items()}
         truth_rate = np.asarray(truth.tendency(jnp.asarray(states), params))[:, :resolved]

@@ -66,7 +66,7 @@ def test_the_two_scale_closure_is_the_least_squares_polynomial():
     variance (Wilks 2005, QJRMS 131, Fig. 2: a smooth curve through the cloud; from memory)."""
     truth = make_lorenz96_two_scale(slow=8, fast_per_slow=8, forcing=18.0, dt=0.005)
     coefficients = fit_closure(truth, forcing=18.0, degree=3)
-    states = attractor_samples(truth)[:FIT_SAMPLES]
+    states = attractor_samples(truth, FIT_SAMPLES)
     slow, fast = states[:, :8], states[:, 8:].reshape(-1, 8, 8)
     coupling = -(1.0 * 10.0 / 10.0) * fast.sum(axis=-1)
     reference = np.polynomial.polynomial.polyfit(slow.ravel(), coupling.ravel(), 3)
@@ -137,15 +137,18 @@ def test_every_demo_model_error_study_composes_and_validates():
     assert mean == 2.0 and half == pytest.approx(4.302652729911275 / np.sqrt(3))  # t_{0.975, 2} (scipy.stats.t)
 
 
-def test_the_climatology_sampler_compiles_once_for_every_parameter_setting():
-    """One compiled program per model's static parts serves every forcing (lanes, closures, thresholds)."""
+def test_the_climatology_programs_compile_once_for_every_parameter_setting_and_users_share_one_draw():
+    """One compiled pair of programs per model's static parts serves every forcing (lanes, closures,
+    thresholds); the divergence rule's block is the first block of the same trajectory B uses."""
     from assimbench.models import climatology
 
     first, second = make_lorenz96(12, forcing=8.0), make_lorenz96(12, forcing=9.0)
     a, b = climatology.attractor_samples(first), climatology.attractor_samples(second)
     assert a.shape == b.shape == (climatology.SAMPLES, 12) and not np.array_equal(a, b)
-    assert climatology._sampler(first) is climatology._sampler(second)
-    assert climatology._sampler(first)._cache_size() == 1
+    start, block = climatology._programs(first)
+    assert climatology._programs(second) == (start, block)
+    assert start._cache_size() == 1 and block._cache_size() == 1
+    np.testing.assert_array_equal(climatology.attractor_samples(first, climatology.BLOCK), a[: climatology.BLOCK])
 
 
 def test_the_model_caches_keep_only_their_most_recent_entries():

@@ -79,7 +79,7 @@ def test_two_scale_climate_and_scale_separation():
     ten times smaller; a stable free run stays finite with the default step 0.005."""
     from assimbench.models.climatology import attractor_samples
 
-    states = attractor_samples(TWO_SCALE)[:2000]
+    states = attractor_samples(TWO_SCALE, 4000)
     assert np.all(np.isfinite(states))
     slow_std, fast_std = states[:, :K].std(), states[:, K:].std()
     assert 2.5 < slow_std < 5.0
