@@ -70,7 +70,8 @@ def build_report(paths: list, out: str) -> tuple:
     Raises ValueError when no file is readable."""
     rows, problems = collect(paths)
     if not rows:
-        raise ValueError("no complete result files among " + " ".join(paths))
+        reasons = "; ".join(problems) if problems else "no .h5 file found"
+        raise ValueError(f"no complete result files among {' '.join(paths)}: {reasons}")
     os.makedirs(out, exist_ok=True)
     written = []
     columns, records = tidy_table(rows)

@@ -23,6 +23,7 @@ import hydra
 import numpy as np
 from hydra.core.hydra_config import HydraConfig
 from omegaconf import DictConfig, OmegaConf
+from tqdm import tqdm
 
 from assimbench.api import run_experiment
 from assimbench.commands._hydra import compose_jobs, fail, informational, run_command
@@ -146,7 +147,8 @@ def _footer(result, path) -> list:
 
 
 class _ChunkProgress:
-    """A progress bar per chunk on a terminal (tqdm on stderr); silent otherwise.
+    """A progress bar per chunk on a terminal (tqdm on stderr); silent otherwise. After every chunk
+    it raises :class:`Stopped` if a stop signal was recorded.
 
     The bar appears with the first finished chunk, so its rate excludes compilation.
     """
@@ -159,11 +161,10 @@ class _ChunkProgress:
     def __call__(self, done: int, total: int) -> None:
         self.done = done
         if self._bar is None and sys.stderr.isatty():
-            from tqdm import tqdm
-
             self._bar = tqdm(total=total, unit="cycle", desc="assimbench", leave=False, file=sys.stderr)
         if self._bar is not None:
             self._bar.update(done - self._bar.n)
+        _raise_if_stopped()  # between chunks: the writer closes the partial file cleanly
 
     def close(self) -> None:
         if self._bar is not None:
@@ -178,14 +179,27 @@ class Stopped(BaseException):
         self.signum = signum
 
 
-def _raise_stopped(signum, frame):
-    raise Stopped(signum)
+# The signal that asked the run to stop. The handler only records it and the run raises Stopped
+# between chunks: an exception raised inside a signal handler lands wherever Python happens to be,
+# and inside a finaliser (a weak-reference callback of a cache) Python only prints "Exception
+# ignored" and carries on, so the run would finish as if nothing had been typed.
+_STOP = {"signum": None}
+
+
+def _record_stop(signum, frame) -> None:
+    _STOP["signum"] = signum
+
+
+def _raise_if_stopped() -> None:
+    if _STOP["signum"] is not None:
+        raise Stopped(_STOP["signum"])
 
 
 def _catch_stop_signals() -> None:
+    _STOP["signum"] = None
     for signum in (signal.SIGTERM, signal.SIGINT):
         try:
-            signal.signal(signum, _raise_stopped)
+            signal.signal(signum, _record_stop)
         except ValueError:  # not the main thread (some launchers): keep the default behaviour
             pass
 
@@ -202,6 +216,7 @@ def _hydra_app(cfg: DictConfig) -> None:
             print(f"{COMMAND}: skipped: {output} is complete for this config", flush=True)
             return
         plan = resolve(cfg)
+        _raise_if_stopped()
         result = run_experiment(plan, output=output, progress=progress, keep_series=False)
     except ConfigError as err:
         sys.exit(fail(COMMAND, str(err)))

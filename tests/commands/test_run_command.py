@@ -201,3 +201,18 @@ def test_the_submitit_launcher_in_local_mode_runs_a_job_end_to_end(tmp_path):
 def test_the_progress_bar_stays_quiet_when_stderr_is_not_a_terminal(tmp_path):
     done = _run(SMALL + ["chunk_cycles=10"], tmp_path)
     assert done.returncode == 0 and done.stderr == ""
+
+
+@pytest.mark.parametrize("args", [["--help"], ["--cfg", "job", "filter=letkf"], ["--hydra-help"]])
+def test_the_informational_calls_print_and_exit_zero(args, tmp_path):
+    done = subprocess.run(_command() + args, cwd=tmp_path, capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0 and "Traceback" not in done.stderr, done.stderr
+    assert done.stdout.strip()
+    assert not (tmp_path / "runs").exists()  # nothing is run, nothing is written
+
+
+def test_the_lyapunov_command_help_prints_and_exits_zero(tmp_path):
+    script = os.path.join(os.path.dirname(sys.executable), "assimbench-lyapunov")
+    command = [script] if os.path.exists(script) else [sys.executable, "-m", "assimbench.commands.lyapunov"]
+    done = subprocess.run(command + ["--help"], cwd=tmp_path, capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0 and "assimbench-lyapunov" in done.stdout, done.stdout + done.stderr

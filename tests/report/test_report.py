@@ -127,3 +127,15 @@ def test_runs_are_paired_only_by_their_stored_experiment_key(sweep, tmp_path, ca
     assert {r["experiment"] for r in table if r["file"] != str(noisy)} == {"1"}
     assert str(unkeyed) not in {r["file"] for r in table}
     assert "unkeyed.h5: no experiment key" in capsys.readouterr().err
+
+
+def test_only_bad_files_are_refused_in_one_line_that_gives_each_reason(tmp_path, capsys):
+    foreign = tmp_path / "foreign.h5"
+    with h5py.File(foreign, "w") as f:
+        f["x"] = np.zeros(3)
+    (tmp_path / "notes.h5").write_text("not HDF5")
+    assert command.main([str(tmp_path), "--out", str(tmp_path / "r")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("assimbench-report: error: no complete result files"), err
+    assert "foreign.h5: not an assimbench result file" in err[0] and "notes.h5: not a readable HDF5 file" in err[0]
+    assert not (tmp_path / "r").exists()

@@ -3,10 +3,13 @@ an uninterrupted run bit for bit, the same seed gives the same bits whatever the
 and random valid small configs either finish with finite summaries or are flagged as diverged."""
 
 import os
+import pty
 import signal
 import subprocess
 import sys
+import threading
 import time
+import weakref
 
 import h5py
 import numpy as np
@@ -178,3 +181,69 @@ def test_a_run_with_an_imperfect_forecast_model_is_repeated_from_its_file(tmp_pa
                           capture_output=True, text=True, timeout=600)
     assert done.returncode == 0, done.stderr
     _assert_same_bits(first, again)
+
+
+def _type_ctrl_c(tmp_path, name, delay):
+    """Run in a pseudo-terminal, type Ctrl-C ``delay`` s after the partial file appears; (exit code,
+    what the terminal showed, final file, partial file)."""
+    target, partial = tmp_path / f"{name}.h5", tmp_path / f"{name}.h5.partial"
+    command = _command() + LONG_RUN + [f"output={target}"]
+    pid, fd = pty.fork()
+    if pid == 0:  # the child: a session of its own with the pty as its controlling terminal
+        os.chdir(tmp_path)
+        os.execv(command[0], command)
+    shown = []
+    reader = threading.Thread(target=_drain, args=(fd, shown), daemon=True)
+    reader.start()
+    deadline = time.time() + 300
+    while not partial.exists() and time.time() < deadline:
+        time.sleep(0.05)
+    time.sleep(delay)
+    os.write(fd, b"\x03")  # the terminal's interrupt character: the line discipline sends SIGINT
+    _, status = os.waitpid(pid, 0)
+    reader.join(timeout=10)
+    os.close(fd)
+    return os.waitstatus_to_exitcode(status), b"".join(shown).decode(errors="replace"), target, partial
+
+
+def _drain(fd, shown):
+    """Keep reading the terminal so the child never blocks on a full pty buffer."""
+    while True:
+        try:
+            data = os.read(fd, 4096)
+        except OSError:  # the child closed the terminal
+            return
+        if not data:
+            return
+        shown.append(data)
+
+
+@pytest.mark.parametrize("delay", [0.2, 0.8])
+def test_ctrl_c_typed_in_a_terminal_always_stops_the_run(tmp_path, delay):
+    """Ctrl-C from a terminal stops the run whenever it lands: exit 130, only the .partial file
+    (marked incomplete), and a line saying so; never a finished file."""
+    code, shown, target, partial = _type_ctrl_c(tmp_path, "typed", delay)
+    assert code == 130, shown
+    assert not target.exists() and partial.exists(), shown
+    assert "stopped by SIGINT" in shown and "Exception ignored" not in shown, shown
+    with h5py.File(partial, "r") as f:
+        assert not f.attrs["complete"]
+
+
+def test_a_stop_that_lands_in_a_finaliser_is_not_lost():
+    """Python runs a signal handler wherever the main thread is; when that is a finaliser (a weak-reference
+    callback of a cache), an exception raised there is only printed ("Exception ignored") and the run goes
+    on. The handler therefore only records the stop, and the run raises it between chunks."""
+    from assimbench.commands import run as command
+
+    class Thing:
+        pass
+
+    thing = Thing()
+    weakref.finalize(thing, command._record_stop, signal.SIGINT, None)
+    command._STOP["signum"] = None
+    del thing  # the finaliser runs here, as the handler would inside a cache's callback
+    with pytest.raises(command.Stopped) as stop:
+        command._raise_if_stopped()
+    assert stop.value.signum == signal.SIGINT
+    command._STOP["signum"] = None
