@@ -6,14 +6,16 @@ naming the first key that is not allowed, the value and what is allowed.
 Nothing here builds a component or touches a file.
 """
 
+import dataclasses
 import itertools
 from typing import NamedTuple
 
 from omegaconf import DictConfig
 
 from assimbench.config.catalogue import Catalogue, catalogue
-from assimbench.config.checks import NodeChecks, fail
+from assimbench.config.checks import ConfigError, NodeChecks, fail
 from assimbench.config.lanes import check_lane_lists, given_lanes, plain_config, with_values
+from assimbench.config.schema import ExperimentBase, StoreConfig
 from assimbench.config.spec import FilterSpec, ModelFacts
 from assimbench.integrators import steps_per_cycle
 from assimbench.twin.diagnostics import OPTIONAL, available_groups
@@ -153,11 +155,28 @@ def _check_lanes(cfg, choice: Choice, cat: Catalogue) -> None:
                 raise type(err)(f"lanes.{err}") from None
 
 
+def _check_known_keys(cfg, specs: dict) -> None:
+    """Every key must be one of its node's schema (``+filter.foo=1`` adds a key Hydra accepts)."""
+    schemas = {"": ExperimentBase, "store": StoreConfig, **{section: spec.schema for section, spec in specs.items()}}
+    for section, schema in schemas.items():
+        node = cfg[section] if section else cfg
+        allowed = {f.name for f in dataclasses.fields(schema)} | ({"lanes"} if not section else set())
+        for key in node:
+            if key not in allowed:
+                full = f"{section}.{key}" if section else key
+                what = f"{section} {node.name}" if "name" in node else (section or "the experiment")
+                raise ConfigError(f"{full} is not a key of this configuration: {what} has "
+                                  + ", ".join(sorted(allowed)))
+
+
 def check(cfg: DictConfig) -> Choice:
     """Check every node of a composed experiment config; return the choice or raise ConfigError."""
     cat = catalogue()
     model, truth = _truth(cfg, cat)
     filter_spec = _chosen(cat.filters, cfg.filter.name, "filter.name", "filter")
+    forecast = _chosen(cat.forecast_models, cfg.forecast_model.name, "forecast_model.name", "forecast_model")
+    _check_known_keys(cfg, {"model": model, "forecast_model": forecast, "observation": cat.network,
+                            "filter": filter_spec})
     interval = NodeChecks(cfg.observation, "observation").real("interval", "a finite model time > 0", minimum=0.0)
     _check_interval(interval, float(cfg.model.dt), "model.dt")
     cat.network.check(NodeChecks(cfg.observation, "observation"), truth.resolved)

@@ -10,6 +10,7 @@ as a :class:`~assimbench.config.checks.ConfigError` with one line naming the
 override and what is allowed (with a "did you mean" for a mistyped key).
 """
 
+import dataclasses
 import difflib
 import re
 from importlib import resources
@@ -100,6 +101,15 @@ def _compose(overrides, config_name: str = "config") -> DictConfig:
         return compose(config_name=config_name, overrides=list(overrides))
 
 
+def _options_with(key: str) -> list:
+    """The options of a component group whose schema has the key (``filter.radius`` -> letkf, ensrf)."""
+    section, _, name = key.partition(".")
+    if section not in ("model", "forecast_model", "filter") or "." in name:
+        return []
+    return sorted(option for option, spec in catalogue().group(section).items()
+                  if name in {f.name for f in dataclasses.fields(spec.schema)})
+
+
 def _first_line(err: BaseException) -> str:
     text = str(err).strip().splitlines()
     return text[0].strip() if text else err.__class__.__name__
@@ -120,7 +130,14 @@ def _translate(err: BaseException, overrides) -> ConfigError:
         if "." not in key and not message.startswith("Could not override"):
             parent = next((_split(o)[0] for o in overrides if _split(o)[0].endswith("." + key)), key)
             key = parent
-        close = difflib.get_close_matches(key, known, n=1, cutoff=0.6)
+        owners = _options_with(key)
+        if owners:
+            chosen = _compose(group_choices)[key.partition(".")[0]].name
+            section = key.partition(".")[0]
+            return ConfigError(f"{key} is not a key of {section} {chosen}; it is a key of {section}="
+                               + "|".join(owners))
+        plain = [k for k in known if not k.startswith("lanes.")]  # a lane key is never what a plain key meant
+        close = difflib.get_close_matches(key, plain, n=1, cutoff=0.6)
         hint = f"; did you mean {close[0]}?" if close else "; the keys are listed by assimbench --cfg job"
         return ConfigError(f"{key} is not a key of this configuration{hint}")
     if "Ambiguous value for argument" in message:

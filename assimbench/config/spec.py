@@ -45,9 +45,6 @@ class ModelSpec:
     ring: bool = False
     lorenz96_ring: bool = False
 
-    def params(self, node) -> dict:
-        return floats(node, self.traced)
-
 
 class ModelFacts(NamedTuple):
     """What the checks know of a model before anything is built: its name, state size, resolved
@@ -66,8 +63,8 @@ class DerivedModelSpec:
 
     build(node, truth: Model) -> Model; sizes(node, truth: ModelFacts) ->
     (size, resolved); check(c, truth: ModelFacts) the ranges of its keys;
-    ring(truth: ModelFacts) -> bool; params(node, truth: Model) -> its
-    dynamic parameters.
+    ring(truth: ModelFacts) -> bool; traced: keys of its dynamic parameters
+    (``Model.params``, lane keys).
     """
 
     name: str
@@ -77,9 +74,6 @@ class DerivedModelSpec:
     ring: Callable
     check: Callable = _nothing
     traced: tuple = ()
-
-    def params(self, node, truth) -> dict:
-        return self.build(node, truth).params
 
 
 @dataclass(frozen=True)

@@ -26,6 +26,9 @@ def _run(args, cwd):
 BAD_INPUT = [
     (["model=lorenz99"], ["model=lorenz99", "lorenz63, lorenz96"]),
     (["filter=kalman"], ["filter=kalman", ", ".join(sorted(catalogue().filters))]),  # every filter is offered
+    (["+filter.foo=1"], ["filter.foo is not a key", "filter etkf has", "inflation"]),
+    (["+foo=1"], ["foo is not a key", "the experiment has", "cycles"]),
+    (["filter.radius=6"], ["filter.radius is not a key of filter etkf", "filter=ensrf|letkf"]),
     (["observation=nowhere"], ["observation=nowhere", "every_station"]),
     (["cycles=abc"], ["cycles", "Integer"]),
     (["filter.members=ten"], ["filter.members", "Integer"]),

@@ -218,6 +218,8 @@ def _drain(fd, shown):
         shown.append(data)
 
 
+# pty.fork warns that JAX's threads may deadlock a forked child; the child here only calls exec.
+@pytest.mark.filterwarnings("ignore:os.fork:RuntimeWarning")
 @pytest.mark.parametrize("delay", [0.2, 0.8])
 def test_ctrl_c_typed_in_a_terminal_always_stops_the_run(tmp_path, delay):
     """Ctrl-C from a terminal stops the run whenever it lands: exit 130, only the .partial file
