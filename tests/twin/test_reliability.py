@@ -155,14 +155,19 @@ def test_random_valid_small_configs_finish_or_are_flagged(overrides):
     assert np.isfinite(values).all() or result.diverged, overrides
 
 
-def test_a_run_can_be_repeated_from_the_config_stored_in_its_file(tmp_path):
-    first = tmp_path / "first.h5"
-    assimbench.run(SMALL + ["filter=letkf", "filter.radius=2.5", "lanes.filter.inflation=[1.05,1.1]"],
-                   output=str(first))
-    again = tmp_path / "again.h5"
+def _repeated_from_its_file(tmp_path, overrides):
+    """Run ``overrides`` into a file, then ``assimbench --from`` that file into another; both paths."""
+    first, again = tmp_path / "first.h5", tmp_path / "again.h5"
+    assimbench.run(overrides, output=str(first))
     done = subprocess.run(_command() + ["--from", str(first), f"output={again}"], cwd=tmp_path,
                           capture_output=True, text=True, timeout=600)
     assert done.returncode == 0, done.stderr
+    return first, again
+
+
+def test_a_run_can_be_repeated_from_the_config_stored_in_its_file(tmp_path):
+    first, again = _repeated_from_its_file(
+        tmp_path, SMALL + ["filter=letkf", "filter.radius=2.5", "lanes.filter.inflation=[1.05,1.1]"])
     _assert_same_bits(first, again)
     with h5py.File(first, "r") as a, h5py.File(again, "r") as b:
         assert a.attrs["config_hash"] == b.attrs["config_hash"]
@@ -173,13 +178,8 @@ def test_a_run_can_be_repeated_from_the_config_stored_in_its_file(tmp_path):
 
 def test_a_run_with_an_imperfect_forecast_model_is_repeated_from_its_file(tmp_path):
     """--from rebuilds every group choice (model, forecast_model, filter), not only model and filter."""
-    first = tmp_path / "imperfect.h5"
-    assimbench.run(SMALL + ["forecast_model=lorenz96", "forecast_model.size=12", "forecast_model.forcing=7"],
-                   output=str(first))
-    again = tmp_path / "again.h5"
-    done = subprocess.run(_command() + ["--from", str(first), f"output={again}"], cwd=tmp_path,
-                          capture_output=True, text=True, timeout=600)
-    assert done.returncode == 0, done.stderr
+    first, again = _repeated_from_its_file(
+        tmp_path, SMALL + ["forecast_model=lorenz96", "forecast_model.size=12", "forecast_model.forcing=7"])
     _assert_same_bits(first, again)
 
 
