@@ -57,14 +57,13 @@ def _check_interval(interval: float, dt: float, dt_key: str) -> None:
         fail("observation.interval", interval, f"a whole multiple (>= 1) of {dt_key}={dt}")
 
 
-def _forecaster(cfg, cat: Catalogue, truth: ModelFacts, interval: float):
-    """The forecast model's spec and facts. It must resolve exactly the truth's resolved variables
+def _forecaster(cfg, cat: Catalogue, spec, truth: ModelFacts, interval: float):
+    """The forecast model's facts (``spec``: its chosen spec). It must resolve exactly the truth's resolved variables
     and carry either only those or the whole truth state (its initial ensemble is the truth's
     state, or its resolved part, plus noise)."""
     node = cfg.forecast_model
-    spec = _chosen(cat.forecast_models, node.name, "forecast_model.name", "forecast_model")
     if spec.name == "same":
-        return spec, truth
+        return truth
     c = NodeChecks(node, "forecast_model")
     dt = c.real("dt", "a finite time step > 0", minimum=0.0)
     if spec.name in cat.derived:
@@ -81,7 +80,7 @@ def _forecaster(cfg, cat: Catalogue, truth: ModelFacts, interval: float):
              + (f" (or all its {truth.size})" if truth.size != truth.resolved else "")
              + f"; this one has {size} variables, {resolved} of them resolved")
     _check_interval(interval, dt, "forecast_model.dt")
-    return spec, facts
+    return facts
 
 
 def _check_diagnostics(cfg, choice: Choice) -> None:
@@ -118,14 +117,14 @@ def _check_outputs(cfg) -> None:
         fail("output", output, "a file path, or null for no file")
 
 
-def _section_checks(cfg, choice: Choice, network) -> dict:
+def _section_checks(choice: Choice, cat: Catalogue) -> dict:
     """section -> check(node) of the node a lane section varies."""
     return {
         "model": lambda node: choice.model.check(NodeChecks(node, "model")),
         "forecast_model": lambda node: (choice.forecast.check(NodeChecks(node, "forecast_model"), choice.truth)
-                                        if choice.forecast.name in catalogue().derived
+                                        if choice.forecast.name in cat.derived
                                         else choice.forecast.check(NodeChecks(node, "forecast_model"))),
-        "observation": lambda node: network.check(NodeChecks(node, "observation"), choice.truth.resolved),
+        "observation": lambda node: cat.network.check(NodeChecks(node, "observation"), choice.truth.resolved),
         "filter": lambda node: choice.filter.check(NodeChecks(node, "filter"), choice.forecaster),
         "": lambda node: NodeChecks(node, "").real("initial_spread", "a finite standard deviation >= 0",
                                                    minimum=0.0, strict=False),
@@ -144,7 +143,7 @@ def _check_lanes(cfg, choice: Choice, cat: Catalogue) -> None:
     forecaster = "model" if choice.forecast.name == "same" else "forecast_model"
     check_lane_lists(given, traced, names, forecaster if choice.filter.climatology else None)
     plain = plain_config(cfg)
-    checks = _section_checks(cfg, choice, cat.network)
+    checks = _section_checks(choice, cat)
     for section, check_node in checks.items():
         lists = [(key, values) for key, values in given if key.rpartition(".")[0] == section]
         for values in itertools.product(*(v for _, v in lists)) if lists else ():
@@ -180,7 +179,7 @@ def check(cfg: DictConfig) -> Choice:
     interval = NodeChecks(cfg.observation, "observation").real("interval", "a finite model time > 0", minimum=0.0)
     _check_interval(interval, float(cfg.model.dt), "model.dt")
     cat.network.check(NodeChecks(cfg.observation, "observation"), truth.resolved)
-    forecast, forecaster = _forecaster(cfg, cat, truth, interval)
+    forecaster = _forecaster(cfg, cat, forecast, truth, interval)
     filter_spec.check(NodeChecks(cfg.filter, "filter"), forecaster)
     _check_run(cfg)
     choice = Choice(model, forecast, filter_spec, truth, forecaster, given_lanes(cfg, cat.lane_keys()))

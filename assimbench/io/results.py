@@ -25,6 +25,7 @@ renamed only when complete, so a killed run never leaves a file at the final
 name. ``read_result`` refuses files that are not assimbench results.
 """
 
+import copy
 from dataclasses import dataclass, field, replace
 
 import h5py
@@ -109,7 +110,7 @@ class Result:
 
     def lane(self, index: int) -> "Result":
         """Lane ``index`` of a result with lanes, as a result without lanes (config with the lane's values)."""
-        config = yaml.safe_load(yaml.safe_dump(self.config))
+        config = copy.deepcopy(self.config)
         for key, values in self.lanes.items():
             node = config
             *parents, leaf = key.split(".")
