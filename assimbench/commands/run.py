@@ -32,6 +32,7 @@ from assimbench.config.composition import config_dir
 from assimbench.config.plan import resolve
 from assimbench.io.provenance import config_hash
 from assimbench.io.results import ResultFileError, read_result, stored_config_hash
+from assimbench.report.words import setting_word, value_text
 
 COMMAND = "assimbench"
 
@@ -95,25 +96,101 @@ def _cell(summary, name):
     return f"{mean:.4f} +- {(high - low) / 2:.4f}".rjust(22)
 
 
+def _lane_value(value, lane: int):
+    """A stored attribute that is one value per lane, or one value for all."""
+    array = np.asarray(value, dtype=float)
+    return float(array) if array.ndim == 0 else float(array[lane])
+
+
+# Filter keys shown only while their switch is on; other keys are shown when not zero, null or false.
+SWITCHED = {"adaptive": ("adaptive_std", "adaptive_min", "adaptive_max")}
+
+
+def settings_line(config: dict) -> str:
+    """The filter's settings in force, in plain words: what is on, and at what value."""
+    node = dict(config.get("filter", {}))
+    hidden = {"name", "members"}
+    for switch, keys in SWITCHED.items():
+        if not node.get(switch):
+            hidden.update(keys)
+    shown = [(k, v) for k, v in node.items() if k not in hidden and v not in (0, None, False)]
+    if "inflation" in node:
+        shown = [("inflation", node["inflation"])] + [(k, v) for k, v in shown if k != "inflation"]
+    return "; ".join(f"{setting_word('filter.' + k)} {value_text(v)}" for k, v in shown) or "none to tune"
+
+
+def network_line(config: dict) -> str:
+    """Where, how often and how precisely the truth is observed."""
+    net = config.get("observation", {})
+    model = config.get("model", {})
+    size = model.get("size") or model.get("slow") or 3
+    stride = int(net.get("stride", 1))
+    seen = "every variable" if stride == 1 else f"every {stride}th variable ({-(-int(size) // stride)} of {size})"
+    transform = net.get("transform", "identity")
+    how = "" if transform == "identity" else f", {transform} of the state"
+    return f"{seen}{how} every {net.get('interval'):g} time units, error std {net.get('error_std'):g}"
+
+
+def reference_lines(summary: dict, config: dict, climate: float) -> list:
+    """The reference levels beside the filter's numbers: the observation error and climatology, and
+    where the analysis stands against them."""
+    error = float(config.get("observation", {}).get("error_std", np.nan))
+    identity = config.get("observation", {}).get("transform", "identity") == "identity"
+    levels = ([f"observation error {error:.4f}"] if identity else []) + [f"climatology {climate:.4f} "
+                                                                          "(RMSE of the climatological mean)"]
+    lines = ["  references          " + ", ".join(levels)]
+    rmse = summary.get("rmse_analysis")
+    if rmse is None or not np.isfinite(rmse):
+        return lines
+    parts = []
+    if identity:
+        parts.append(f"{rmse / error:.2f} x the observation error")
+    parts.append(f"{rmse / climate:.2f} x climatology")
+    levels = [(name, level) for name, level, used in (("the observation error", error, identity),
+                                                      ("climatology", climate, True)) if used]
+    better = [name for name, level in levels if rmse < level]
+    worse = [name for name, level in levels if not rmse < level]
+    if not worse:
+        verdict = "better than both" if len(better) == 2 else f"better than {better[0]}"
+    else:
+        verdict = "; ".join(([f"better than {' and '.join(better)}"] if better else [])
+                            + [f"NOT better than {' or '.join(worse)}"])
+    lines.append(f"  analysis RMSE is    {', '.join(parts)}: {verdict}")
+    return lines
+
+
 def format_summary(result, path, title: str) -> str:
-    """The short table printed at the end of a run: time means after burn-in with 95% intervals."""
-    head = title
+    """The block printed at the end of a run: what ran (settings, network), time means after burn-in
+    with 95% intervals, and the reference levels the analysis error should beat."""
+    config = result.config
+    head = [title, f"  settings            {settings_line(config)}",
+            f"  observed            {network_line(config)}"]
+    climate = result.attrs.get("climatological_std")
     if result.lanes:
-        head += f", {result.lane_count} lanes"
-        return "\n".join([head] + _lane_rows(result) + _footer(result, path))
+        head[0] += f", {result.lane_count} lanes"
+        lines = head + _lane_rows(result)
+        if climate is not None:
+            error = config.get("observation", {}).get("error_std")
+            lines.append(f"  references          observation error {error:g}, climatology "
+                         f"{_lane_value(climate, 0):.4f} (RMSE of the climatological mean, lane 1)")
+        return "\n".join(lines + _footer(result, path))
     s = result.summary
-    lines = [head, f"  {'time mean (95%)':<20}{'forecast':>22}{'analysis':>22}"]
-    for label, stem in (("RMSE", "rmse"), ("spread", "spread"), ("spread / RMSE", "spread_skill"),
-                        ("CRPS", "crps"), ("CRPS (fair)", "crps_fair")):
+    lines = head + [f"  {'time mean (95%)':<20}{'forecast':>22}{'analysis':>22}"]
+    for label, stem in (("RMSE", "rmse"), ("spread", "spread"), ("CRPS", "crps"), ("CRPS (fair)", "crps_fair")):
         if f"{stem}_analysis" in s:
             lines.append(f"  {label:<20}{_cell(s, stem + '_forecast')}{_cell(s, stem + '_analysis')}")
+    if "spread_skill_ratio_analysis" in s:
+        lines.append(f"  {'spread / RMSE':<20}{s['spread_skill_ratio_forecast']:>22.4f}"
+                     f"{s['spread_skill_ratio_analysis']:>22.4f}   (ratio of the time means)")
     for label, name in (("innovation ratio", "innovation_ratio"), ("Desroziers R", "desroziers_r"),
                         ("Desroziers HBH^T", "desroziers_hbht"), ("ESS", "ess")):
         if name in s:
             lines.append(f"  {label:<20}{_cell(s, name)}")
+    if climate is not None:
+        lines += reference_lines(s, config, float(climate))
     if result.diverged:
         where = ", ".join(f"replicate {r} at cycle {c}" for r, c in enumerate(result.first_bad_cycle) if c >= 0)
-        lines.append(f"  DIVERGED: {where}")
+        lines.append(f"  DIVERGED (the filter lost the truth): {where}")
     return "\n".join(lines + _footer(result, path))
 
 

@@ -34,7 +34,9 @@ class Plan:
 
     setup: the static parts (built once, from the lanes' hull); settings: the
     traced settings pytree, every leaf with a leading (lanes x replicates) axis,
-    lane-major, when the job has lanes (``batched``); thresholds: (lanes,)
+    lane-major, when the job has lanes (``batched``); climate_stds: (lanes,)
+    climatological standard deviation of a resolved truth variable (the RMSE
+    of the climatological mean, a reference level); thresholds: (lanes,)
     analysis RMSE above which a run counts as lost (inf for reference runs);
     experiment_keys: (lanes,) hashes of what fixes each lane's truth and
     observations; attrs: the provenance stored in the result file; title: one
@@ -54,6 +56,7 @@ class Plan:
     interval: float
     patience: int
     ensemble_every: int
+    climate_stds: np.ndarray
     thresholds: np.ndarray
     experiment_keys: tuple
     layouts: dict
@@ -158,8 +161,8 @@ def resolve(cfg: DictConfig) -> Plan:
     else:
         settings = jax.tree.map(lambda v: jnp.asarray(v, dtype=jnp.float64), per_lane[0])
     factor = float(cfg.divergence_factor)
-    thresholds = np.array([factor * climate_std(models(lane)[0]) if choice.filter.assimilates else np.inf
-                           for lane in lanes])
+    climate_stds = np.array([climate_std(models(lane)[0]) for lane in lanes])
+    thresholds = factor * climate_stds if choice.filter.assimilates else np.full(len(lanes), np.inf)
     keys = tuple(experiment_key(OmegaConf.to_container(lane.model), OmegaConf.to_container(lane.observation),
                                 lane.truth_noise_std, cfg.seed, replicates, cfg.cycles) for lane in lanes)
     layouts, coordinates = layouts_of(setup)
@@ -167,6 +170,6 @@ def resolve(cfg: DictConfig) -> Plan:
         config=cfg, choice=choice, setup=setup, settings=settings, grid=grid, replicates=replicates,
         cycles=int(cfg.cycles), burn_in=int(cfg.burn_in), chunk_cycles=int(cfg.chunk_cycles), seed=int(cfg.seed),
         interval=float(cfg.observation.interval), patience=int(cfg.divergence_patience),
-        ensemble_every=int(cfg.store.ensemble_every), thresholds=thresholds, experiment_keys=keys,
+        ensemble_every=int(cfg.store.ensemble_every), climate_stds=climate_stds, thresholds=thresholds, experiment_keys=keys,
         layouts=layouts, coordinates=coordinates, attrs=provenance(cfg, list(keys)), title=_title(cfg, choice),
     )

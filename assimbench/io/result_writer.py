@@ -24,6 +24,12 @@ class Layout(NamedTuple):
     dtype: type = np.float64
 
 
+def plain_attributes(attrs: dict) -> dict:
+    """Attributes as every HDF5 and netCDF reader sees them: a boolean becomes the integer 0 or 1
+    (HDF5 has no boolean type; h5py's enum for it is lost by netCDF libraries)."""
+    return {k: int(v) if isinstance(v, (bool, np.bool_)) else v for k, v in attrs.items()}
+
+
 class ResultWriter:
     """Stream per-cycle datasets into a new result file, chunk by chunk.
 
@@ -43,8 +49,8 @@ class ResultWriter:
         self._interval = float(interval)
         self._cycles = 0
         f = self._file
-        f.attrs.update({"file_kind": FILE_KIND, "format_version": FORMAT_VERSION, "complete": False})
-        f.attrs.update(attrs)
+        f.attrs.update({"file_kind": FILE_KIND, "format_version": FORMAT_VERSION, "complete": 0})
+        f.attrs.update(plain_attributes(attrs))
         lanes = lanes or {}
         lane_count = len(next(iter(lanes.values()))) if lanes else 0
         self._lead = (lane_count, replicates) if lanes else (replicates,)
@@ -166,19 +172,45 @@ class ResultWriter:
             group.attrs.update({k: float(v) for k, v in summary.items()})
         else:
             group.attrs.update({k: np.asarray(v, dtype=np.float64) for k, v in summary.items()})
+        # The group carries its own copies of its coordinates, so that a netCDF reader opening the
+        # group alone (xarray's group="summary") sees them by name.
+        local = {}
+
+        def scale(dim):
+            if dim not in local:
+                source = self._scales[dim]
+                local[dim] = group.create_dataset(dim, data=source[...])
+                local[dim].attrs.update(dict(source.attrs.items()))
+                local[dim].make_scale(dim)
+            return local[dim]
+
+        lane_keys = str(f.attrs.get("lane_keys", "")).split()
+        for key in lane_keys:
+            ds = group.create_dataset(key, data=f[key][...])
+            ds.attrs.update({k: v for k, v in f[key].attrs.items() if k in ("long_name", "units")})
+            ds.dims[0].attach_scale(scale("lane"))
+
+        def attach(ds, dims):
+            for axis, dim in enumerate(dims):
+                ds.dims[axis].attach_scale(scale(dim))
+            if lane_keys:
+                ds.attrs["coordinates"] = " ".join(lane_keys)
+
         for name, values in per_replicate.items():
             ds = group.create_dataset(name, data=self._shaped(values, np.float64))
-            ds.attrs["long_name"] = "time mean after burn-in of " + name
-            ds.attrs["units"] = "see the per-cycle dataset"
-            self._attach_lead(ds)
+            base = name.removesuffix("_halfwidth")
+            what = f"time mean after burn-in of {base}"
+            ds.attrs["long_name"] = (f"half-width of the 95% interval of the {what}" if base != name else what)
+            if base in self._layouts:
+                ds.attrs["units"] = self._layouts[base].units
+            attach(ds, self._lead_dims)
         for name, values in totals.items():
             ds = group.create_dataset(name, data=self._shaped(values, np.int64))
             ds.attrs["long_name"] = "counts summed over the cycles after burn-in of " + name
             ds.attrs["units"] = "count"
-            self._attach_lead(ds)
-            ds.dims[lead].attach_scale(self._scales[self._layouts[name].dims[2]])
-        f.attrs.update(attrs)
-        f.attrs["complete"] = True
+            attach(ds, self._lead_dims + (self._layouts[name].dims[2],))
+        f.attrs.update(plain_attributes(attrs))
+        f.attrs["complete"] = 1
         f.close()
         return publish(self.path)
 
@@ -188,7 +220,7 @@ class ResultWriter:
 
     def close_incomplete(self) -> None:
         if self._file.id.valid:
-            self._file.attrs["complete"] = False
+            self._file.attrs["complete"] = 0
             self._file.close()
 
     def __enter__(self):

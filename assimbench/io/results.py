@@ -163,10 +163,12 @@ def read_result(path: str, series: bool = True) -> Result:
             stored = {n: f[n][...] for n in names} if series else {}
             summary = {k: _number(v) for k, v in f["summary"].attrs.items()}
             group = f["summary"]
-            per_replicate = {n: group[n][...] for n in group if group[n].dtype.kind == "f"}
-            totals = {n: group[n][...] for n in group if group[n].dtype.kind in "iu"}
             attrs = {k: _plain(v) for k, v in f.attrs.items()}
             lane_keys = str(attrs.get("lane_keys", "")).split()
+            # The group's own coordinates (dimension scales, lane values) are not results.
+            values = [n for n in group if n not in lane_keys and not h5py.h5ds.is_scale(group[n].id)]
+            per_replicate = {n: group[n][...] for n in values if group[n].dtype.kind == "f"}
+            totals = {n: group[n][...] for n in values if group[n].dtype.kind in "iu"}
             lanes = {key: f[key][...] for key in lane_keys}
             first_bad = f["first_bad_cycle"][...]
         except (KeyError, OSError, ValueError, TypeError, yaml.YAMLError) as err:

@@ -24,7 +24,7 @@ def write_spectrum(path: str, spectrum, cfg: DictConfig) -> str:
     """The spectrum file, written as ``path.partial`` and renamed when complete."""
     interval = float(cfg.observation.interval)
     with atomic_file(path) as partial, h5py.File(partial, "w") as f:
-        f.attrs.update({"file_kind": FILE_KIND, "complete": False, "config": OmegaConf.to_yaml(cfg, resolve=True),
+        f.attrs.update({"file_kind": FILE_KIND, "complete": 0, "config": OmegaConf.to_yaml(cfg, resolve=True),
                         **provenance_versions()})
         index = f.create_dataset("exponent", data=np.arange(spectrum.exponents.size))
         index.attrs.update({"long_name": "exponent index, descending", "units": "1"})
@@ -45,6 +45,6 @@ def write_spectrum(path: str, spectrum, cfg: DictConfig) -> str:
             "doubling_time": spectrum.doubling_time,
             "doubling_time_intervals": spectrum.doubling_time / interval,
             "observation_interval": interval,
-            "complete": True,
+            "complete": 1,
         })
     return os.path.abspath(path)

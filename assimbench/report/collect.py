@@ -2,10 +2,17 @@
 
 A row is one lane of one result (a :class:`~assimbench.io.results.Result`
 without lanes) with its config flattened ("filter.inflation" -> 1.05) and the
-number of its experiment. Rows of one experiment share the truth and the
-observations: the same stored experiment key (a hash of everything that fixes
-them, written by the run) and the same burn-in, so their differences are
-paired. A file without an experiment key is named and never paired.
+number of its experiment.
+
+An experiment is everything about a run but the filter's settings and the
+seed: the truth model, the observation network, the truth's model error, the
+replicates, the cycles and the burn-in. Rows of one experiment with the same
+seed saw the same truth and the same observations: the same stored
+experiment key (a hash of everything that fixes them, written by the run), so
+their differences are paired cycle by cycle. Rows of one experiment with
+different seeds are independent draws of the same experiment, so the report
+pools them (:mod:`assimbench.report.pooling`). A file without an experiment
+key is named and never paired.
 """
 
 import os
@@ -16,9 +23,9 @@ import numpy as np
 
 from assimbench.io.results import Result, ResultFileError, read_result
 
-# Keys that describe how experiments differ (for the report's text; pairing is by the stored key).
+# Keys that make an experiment (the seed aside); pairing within one is by the stored key.
 EXPERIMENT_PREFIXES = ("model.", "observation.")
-EXPERIMENT_KEYS = ("seed", "replicates", "cycles", "burn_in", "truth_noise_std")
+EXPERIMENT_KEYS = ("replicates", "cycles", "burn_in", "truth_noise_std")
 # Keys that never describe a setting of the comparison.
 IGNORED_PREFIXES = ("lanes.", "store.", "output", "chunk_cycles", "diagnostics", "divergence_")
 
@@ -66,8 +73,18 @@ class Row:
         return (self.result.experiment_keys[0], self.config.get("burn_in"))
 
     @property
-    def lost(self) -> int:
-        """How many replicates diverged."""
+    def description(self) -> tuple:
+        """What makes rows one experiment (all but the settings and the seed), hashable."""
+        return tuple(sorted((k, repr(v)) for k, v in self.config.items()
+                            if k.startswith(EXPERIMENT_PREFIXES) or k in EXPERIMENT_KEYS))
+
+    @property
+    def seed(self) -> int:
+        return int(self.config.get("seed", 0))
+
+    @property
+    def blown_up(self) -> int:
+        """How many replicates diverged (non-finite, or beyond the divergence threshold)."""
         return int(np.sum(self.first_bad_cycle >= 0))
 
     @property
@@ -132,7 +149,7 @@ def collect(paths) -> tuple:
             problems.append(f"{err}; skipped")
     experiments = {}
     for row in rows:
-        row.experiment = experiments.setdefault(row.experiment_key, len(experiments) + 1)
+        row.experiment = experiments.setdefault(row.description, len(experiments) + 1)
     return rows, problems
 
 
@@ -143,7 +160,7 @@ def varied_settings(rows: list) -> list:
         keys.update(row.config)
     varied = []
     for key in sorted(keys):
-        if key.startswith(IGNORED_PREFIXES) or key in ("filter.name", "filter.members"):
+        if key.startswith(IGNORED_PREFIXES) or key in ("filter.name", "filter.members", "seed"):
             continue
         values = {repr(row.config.get(key)) for row in rows}
         if len(values) > 1:

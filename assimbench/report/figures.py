@@ -1,21 +1,41 @@
-"""Figures of a report, as PNG files: plain, labelled, with units on every axis.
+"""Figures of a report, as PNG files: plain words, units on every axis, readable numeric ticks.
 
-Each function takes rows (:class:`assimbench.report.collect.Row`) and a path,
-draws one figure and writes it through a temporary name. Figures are made
-with matplotlib's object interface (no pyplot, so no backend is chosen or
-switched: files only, no screen).
+Each function takes pooled settings or decided points
+(:mod:`assimbench.report.pooling`, :mod:`assimbench.report.decide`) and a
+path, draws one figure and writes it through a temporary name. Figures are
+made with matplotlib's object interface (no pyplot, so no backend is chosen
+or switched: files only, no screen).
+
+Colours: the palette of Okabe & Ito (2008, "Color Universal Design", J*Fly,
+jfly.uni-koeln.de/color; values from memory), chosen to stay distinguishable
+for readers with the common forms of colour blindness. Yellow comes last: it
+is faint on white.
 """
+
+import math
 
 import matplotlib
 import matplotlib.patches
 import matplotlib.ticker
+import matplotlib.transforms
 import numpy as np
 from matplotlib.figure import Figure
 
 from assimbench.io.atomic import atomic_file
+from assimbench.report.words import describe, setting_word, value_text
 
-# Our own muted palette and a quiet frame.
-PALETTE = ("#1f4e79", "#c0504d", "#4f7f3a", "#8064a2", "#d08c1b", "#2f8f9d", "#7f6a4f", "#5a5a5a")
+OKABE_ITO = {
+    "blue": "#0072B2",
+    "vermillion": "#D55E00",
+    "bluish green": "#009E73",
+    "orange": "#E69F00",
+    "reddish purple": "#CC79A7",
+    "sky blue": "#56B4E9",
+    "black": "#000000",
+    "yellow": "#F0E442",
+}
+PALETTE = tuple(OKABE_ITO.values())
+NEUTRAL = "#8c8c8c"
 STYLE = {
     "figure.dpi": 110,
     "savefig.dpi": 130,
@@ -32,6 +52,7 @@ STYLE = {
 }
 STATE_UNITS = "state units"
 TIME_UNITS = "model time units"
+MAX_PANELS = 8
 
 
 def _save(fig, path: str) -> str:
@@ -40,20 +61,16 @@ def _save(fig, path: str) -> str:
     return path
 
 
-def _axes(rows: int = 1, columns: int = 1, squeeze: bool = True, **figure) -> tuple:
+def _axes(rows: int = 1, columns: int = 1, squeeze: bool = True, sharex: bool = False, **figure) -> tuple:
     """A new figure and its axes (as ``Figure.subplots`` gives them)."""
     fig = Figure(**figure)
-    axes = fig.subplots(rows, columns, squeeze=squeeze)
+    axes = fig.subplots(rows, columns, squeeze=squeeze, sharex=sharex)
     return fig, axes
 
 
-def _label(row) -> str:
-    members = f" N={row.members}" if row.members else ""
-    return f"{row.filter}{members}"
-
-
-def _colour(names: list) -> dict:
-    return {name: PALETTE[i % len(PALETTE)] for i, name in enumerate(sorted(set(names)))}
+def colours(names: list) -> dict:
+    """A colour per name, in the order the names first appear."""
+    return {name: PALETTE[i % len(PALETTE)] for i, name in enumerate(dict.fromkeys(names))}
 
 
 def running_mean(values: np.ndarray, window: int) -> np.ndarray:
@@ -63,41 +80,153 @@ def running_mean(values: np.ndarray, window: int) -> np.ndarray:
     return (cumulative[1:] - cumulative[np.arange(1, values.size + 1) - counts]) / counts
 
 
-def errors_over_cycles(rows: list, path: str, window: int = 20) -> str:
-    """Analysis RMSE (solid) and spread (dashed) of replicate 0 against model time."""
+def readable_log_ticks(low: float, high: float) -> list:
+    """Tick values for a log axis from ``low`` to ``high``: the 1-2-5 steps of each decade, finer
+    steps when fewer than three fall in the range, evenly spaced values for a very narrow range."""
+    first, last = math.floor(math.log10(low)) - 1, math.ceil(math.log10(high)) + 1
+    for steps in ((1, 2, 5), (1, 1.5, 2, 3, 5, 7)):
+        ticks = [m * 10.0**e for e in range(first, last) for m in steps if low <= m * 10.0**e <= high]
+        if len(ticks) >= 3:
+            return ticks
+    return list(matplotlib.ticker.MaxNLocator(4).tick_values(low, high)[1:-1]) or [low, high]
+
+
+def set_log_axis(ax, values: np.ndarray) -> None:
+    """A log y axis over the finite positive ``values`` with numeric ticks that always show."""
+    shown = values[np.isfinite(values) & (values > 0)]
+    if shown.size == 0:
+        return
+    low, high = float(shown.min()) / 1.1, float(shown.max()) * 1.1
+    ax.set_yscale("log")
+    ax.set_ylim(low, high)
+    ticks = readable_log_ticks(low, high)
+    ax.yaxis.set_major_locator(matplotlib.ticker.FixedLocator(ticks))
+    ax.yaxis.set_major_formatter(matplotlib.ticker.FixedFormatter([f"{t:.3g}" for t in ticks]))
+    ax.yaxis.set_minor_locator(matplotlib.ticker.NullLocator())
+
+
+def _observation_error(ax, setting, highest: float = np.inf) -> None:
+    """A dotted line at the observation error (in state units only for an identity network). When it
+    is far above the plotted values (``highest``) it would flatten them: the legend names it instead."""
+    config = setting.config
+    if config.get("observation.transform", "identity") != "identity" or "observation.error_std" not in config:
+        return
+    error = float(config["observation.error_std"])
+    if error <= 1.5 * highest:
+        ax.axhline(error, color=NEUTRAL, lw=0.9, ls=":", label=f"observation error ({error:g})")
+    else:
+        ax.plot([], [], color=NEUTRAL, lw=0.9, ls=":", label=f"observation error ({error:g}, above the plotted range)")
+
+
+def errors_over_cycles(points: list, path: str, window: int = 20) -> str:
+    """One panel per decided point: the best setting's analysis RMSE of every replicate of every seed
+    (thin), their mean (thick) and the mean spread (dashed), as running means over model time."""
+    points = [p for p in points if p.best is not None][:MAX_PANELS]
+    columns = 1 if len(points) == 1 else 2
+    rows = math.ceil(len(points) / columns)
     with matplotlib.rc_context(STYLE):
-        fig, ax = _axes(figsize=(7.0, 3.6))
-        colours = _colour([_label(r) for r in rows])
-        for row in rows[: len(PALETTE)]:
-            rmse, spread = row.series("rmse_analysis")[0], row.series("spread_analysis")[0]
-            time = row.interval * np.arange(1, rmse.size + 1)
-            colour = colours[_label(row)]
-            ax.plot(time, running_mean(rmse, window), color=colour, lw=1.1, label=f"{_label(row)} RMSE")
-            ax.plot(time, running_mean(spread, window), color=colour, lw=1.0, ls="--", label=f"{_label(row)} spread")
-        burn_in = int(rows[0].config.get("burn_in", 0)) * rows[0].interval
-        ax.axvspan(0, burn_in, color="#f3f3f3", lw=0, zorder=0)
-        ax.set_xlabel(f"time ({TIME_UNITS})")
-        ax.set_ylabel(f"analysis RMSE, spread ({STATE_UNITS})")
-        ax.set_title(f"Analysis error and spread, replicate 0 ({window}-cycle running mean; shaded: burn-in)")
-        ax.set_yscale("log")
-        ax.yaxis.set_major_formatter(matplotlib.ticker.FormatStrFormatter("%g"))
-        ax.yaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
-        ax.legend(fontsize=8, ncol=2)
+        fig, axes = _axes(rows, columns, squeeze=False, figsize=(6.4 * columns if columns == 1 else 11.0, 2.9 * rows),
+                          sharex=True, layout="constrained")
+        palette = colours([p.name for p in points])
+        shown = []
+        for ax, point in zip(axes.flat, points):
+            best = point.best
+            rmse, spread = best.series("rmse_analysis"), best.series("spread_analysis")
+            smooth = np.array([running_mean(r, window) for r in rmse])
+            time = best.rows[0].interval * np.arange(1, rmse.shape[1] + 1)
+            colour = palette[point.name]
+            for replicate in smooth:
+                ax.plot(time, replicate, color=colour, lw=0.5, alpha=0.3)
+            ax.plot(time, smooth.mean(axis=0), color=colour, lw=1.6, label=f"RMSE, mean of {len(smooth)} replicates")
+            ax.plot(time, running_mean(spread.mean(axis=0), window), color="black", lw=1.0, ls="--",
+                    label="spread, mean")
+            _observation_error(ax, best)
+            burn_in = int(best.config.get("burn_in", 0)) * best.rows[0].interval
+            ax.axvspan(0, burn_in, color="#f0f0f0", lw=0, zorder=0)
+            seeds = ", ".join(map(str, best.seeds))
+            tuned = f": {describe(best.config, point.tuned_keys)}" if point.tuned_keys else ""
+            ax.set_title(f"{point.name}{tuned} (seed{'s' if len(best.seeds) > 1 else ''} {seeds})", fontsize=9)
+            ax.legend(fontsize=7.5, loc="upper right")
+            shown.append(smooth)
+            if best.config.get("observation.transform", "identity") == "identity":
+                shown.append(np.array([float(best.config.get("observation.error_std", np.nan))]))
+        for ax in list(axes.flat)[len(points):]:
+            ax.set_visible(False)
+        everything = np.concatenate([s.ravel() for s in shown])
+        for ax in list(axes.flat)[: len(points)]:
+            set_log_axis(ax, everything)  # one range for every panel, so panels compare at a glance
+        fig.supxlabel(f"time ({TIME_UNITS}); shaded: burn-in", fontsize=9)
+        fig.supylabel(f"analysis RMSE and spread ({STATE_UNITS})", fontsize=9)
+        fig.suptitle(f"Analysis error over time at the best settings ({window}-cycle running means)",
+                     fontsize=10, fontweight="bold")
         return _save(fig, path)
 
 
-def heat_map(rows: list, x_key: str, y_key: str, path: str, metric: str = "rmse_analysis") -> str:
-    """Time-mean ``metric`` over two swept settings; cells with a lost replicate are hatched."""
-    xs = sorted({r.config[x_key] for r in rows})
-    ys = sorted({r.config[y_key] for r in rows})
+def _profile(point, key: str) -> list:
+    """The point's settings along ``key`` with every other tuned key at the best setting's value."""
+    anchor = point.best or point.settings[0]
+    others = [k for k in point.tuned_keys if k != key]
+    chosen = [s for s in point.settings if all(repr(s.config.get(k)) == repr(anchor.config.get(k)) for k in others)]
+    return sorted(chosen, key=lambda s: s.config.get(key))
+
+
+def error_against_setting(points: list, key: str, path: str) -> str:
+    """Pooled time-mean analysis RMSE against one swept setting, one line per static point (ensemble
+    size, filter), 95% intervals; other swept settings at each line's best; lost settings marked x."""
+    points = [p for p in points if key in p.tuned_keys]
+    with matplotlib.rc_context(STYLE):
+        fig, ax = _axes(figsize=(6.2, 4.0))
+        palette = colours([p.name for p in points])
+        top = matplotlib.transforms.blended_transform_factory(ax.transData, ax.transAxes)
+        any_lost = 0
+        for point in points:
+            profile = _profile(point, key)
+            colour = palette[point.name]
+            kept = [s for s in profile if not s.lost]
+            x = np.array([s.config[key] for s in kept], float)
+            est = np.array([s.estimate("rmse_analysis") for s in kept]).reshape(-1, 3)
+            others = [k for k in point.tuned_keys if k != key]
+            label = point.name + (f" ({describe((point.best or profile[0]).config, others)})" if others else "")
+            ax.errorbar(x, est[:, 0], yerr=np.nan_to_num(np.abs(np.vstack([est[:, 0] - est[:, 1], est[:, 2] - est[:, 0]]))),
+                        color=colour, marker="o", ms=4, lw=1.3, capsize=3, label=label)
+            if point.best is not None and point.best in kept:
+                ax.plot([point.best.config[key]], [point.best.value("rmse_analysis")], marker="*", ms=13,
+                        color=colour, markeredgecolor="black", markeredgewidth=0.6, zorder=5)
+            lost = [s.config[key] for s in profile if s.lost]
+            if lost:
+                # One row of marks per line above the data, so that marks of several lines never hide each other.
+                any_lost += 1
+                ax.plot(lost, [1.0 - 0.04 * any_lost] * len(lost), ls="none", marker="x", ms=7, mew=1.5, color=colour, transform=top,
+                        clip_on=False)
+        if points:
+            plotted = [s.value("rmse_analysis") for p in points for s in p.settings if not s.lost]
+            _observation_error(ax, points[0].settings[0], max([v for v in plotted if np.isfinite(v)], default=np.inf))
+        if any_lost:
+            low, high = ax.get_ylim()
+            ax.set_ylim(low, high + (high - low) * (0.06 + 0.05 * any_lost))  # room for the rows of marks
+        values = sorted({s.config[key] for p in points for s in p.settings})
+        if len(values) <= 10:
+            ax.set_xticks(values, [value_text(v) for v in values])
+        ax.set_xlabel(f"{setting_word(key)} (as configured)")
+        ax.set_ylabel(f"time-mean analysis RMSE ({STATE_UNITS})")
+        note = "; x at the top: lost (a replicate failed)" if any_lost else ""
+        ax.set_title(f"Analysis error against {setting_word(key)} (95% intervals; star: best{note})", fontsize=9)
+        ax.legend(fontsize=8)
+        return _save(fig, path)
+
+
+def heat_map(settings: list, x_key: str, y_key: str, path: str, title: str, best=None) -> str:
+    """Pooled time-mean analysis RMSE over two settings; lost cells hatched, the best outlined."""
+    xs = sorted({s.config[x_key] for s in settings})
+    ys = sorted({s.config[y_key] for s in settings})
     grid = np.full((len(ys), len(xs)), np.nan)
     lost = np.zeros_like(grid, dtype=bool)
-    for r in rows:
-        i, j = ys.index(r.config[y_key]), xs.index(r.config[x_key])
-        grid[i, j] = r.summary.get(metric, np.nan)
-        lost[i, j] = r.lost > 0
+    for s in settings:
+        i, j = ys.index(s.config[y_key]), xs.index(s.config[x_key])
+        grid[i, j] = s.value("rmse_analysis")
+        lost[i, j] = s.lost > 0
     with matplotlib.rc_context({**STYLE, "axes.grid": False}):
-        fig, ax = _axes(figsize=(1.2 + 0.9 * len(xs), 1.2 + 0.6 * len(ys)))
+        fig, ax = _axes(figsize=(1.6 + 0.9 * len(xs), 1.4 + 0.55 * len(ys)))
         shown = np.where(lost, np.nan, grid)
         finite = shown[np.isfinite(shown)]
         vmin, vmax = (finite.min(), finite.max()) if finite.size else (0.0, 1.0)
@@ -105,86 +234,115 @@ def heat_map(rows: list, x_key: str, y_key: str, path: str, metric: str = "rmse_
         for i in range(len(ys)):
             for j in range(len(xs)):
                 if lost[i, j]:
-                    ax.add_patch(matplotlib.patches.Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, hatch="xxx", color="#9a9a9a"))
+                    ax.add_patch(matplotlib.patches.Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, hatch="xxx",
+                                                              color="#9a9a9a"))
                     ax.text(j, i, "lost", ha="center", va="center", fontsize=8, color="#444444")
                 elif np.isfinite(grid[i, j]):
                     dark = (grid[i, j] - vmin) > 0.5 * (vmax - vmin)
                     ax.text(j, i, f"{grid[i, j]:.3f}", ha="center", va="center", fontsize=8,
                             color="white" if dark else "black")
-        ax.set_xticks(range(len(xs)), [f"{v:g}" for v in xs])
-        ax.set_yticks(range(len(ys)), [f"{v:g}" for v in ys])
-        ax.set_xlabel(f"{x_key} (as configured)")
-        ax.set_ylabel(f"{y_key} (as configured)")
-        first = rows[0]
-        ax.set_title(f"Time-mean {metric.replace('_', ' ')}: {_label(first)}")
+        if best is not None:
+            j, i = xs.index(best.config[x_key]), ys.index(best.config[y_key])
+            ax.add_patch(matplotlib.patches.Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, lw=2.0,
+                                                      color=OKABE_ITO["vermillion"]))
+        ax.set_xticks(range(len(xs)), [value_text(v) for v in xs])
+        ax.set_yticks(range(len(ys)), [value_text(v) for v in ys])
+        ax.set_xlabel(setting_word(x_key))
+        ax.set_ylabel(setting_word(y_key))
+        ax.set_title(title, fontsize=9)
         bar = fig.colorbar(image, ax=ax)
-        bar.set_label(f"{metric.replace('_', ' ')} ({STATE_UNITS})")
+        bar.set_label(f"time-mean analysis RMSE ({STATE_UNITS})")
         return _save(fig, path)
 
 
-def tuned_curve(best: list, path: str, metric: str = "rmse_analysis") -> str:
-    """Tuned time-mean ``metric`` against ensemble size, one line per filter, 95% error bars."""
+def tuned_curve(points: list, path: str) -> str:
+    """The best time-mean analysis RMSE against ensemble size, one line per filter, 95% error bars."""
+    decided = [p for p in points if p.best is not None and p.members]
     with matplotlib.rc_context(STYLE):
-        fig, ax = _axes(figsize=(5.2, 3.6))
-        filters = sorted({r.filter for r in best})
-        colours = _colour(filters)
-        for name in filters:
-            mine = sorted((r for r in best if r.filter == name and r.members), key=lambda r: r.members)
-            if not mine:
-                continue
-            x = np.array([r.members for r in mine], dtype=float)
-            y = np.array([r.summary[metric] for r in mine])
-            low = np.array([r.summary.get(metric + "_low", np.nan) for r in mine])
-            high = np.array([r.summary.get(metric + "_high", np.nan) for r in mine])
-            ax.errorbar(x, y, yerr=np.nan_to_num(np.vstack([y - low, high - y])), color=colours[name], marker="o",
-                        ms=4, lw=1.2, capsize=3, label=name)
-        sizes = sorted({r.members for r in best if r.members})
+        fig, ax = _axes(figsize=(5.4, 3.8))
+        lines = {}
+        for p in decided:
+            lines.setdefault(p.name.split(",")[0] + "".join(f", {setting_word(k)} {v}" for k, v in p.static), []).append(p)
+        palette = colours(list(lines))
+        for label, mine in lines.items():
+            mine.sort(key=lambda p: p.members)
+            x = np.array([p.members for p in mine], float)
+            est = np.array([p.best.estimate("rmse_analysis") for p in mine])
+            ax.errorbar(x, est[:, 0], yerr=np.nan_to_num(np.abs(np.vstack([est[:, 0] - est[:, 1], est[:, 2] - est[:, 0]]))),
+                        color=palette[label], marker="o", ms=4, lw=1.3, capsize=3, label=label)
+        if decided:
+            _observation_error(ax, decided[0].best, max(p.best.estimate("rmse_analysis")[2] for p in decided))
+        sizes = sorted({p.members for p in decided})
         ax.set_xscale("log", base=2)
         ax.set_xticks(sizes, [str(m) for m in sizes])
         ax.xaxis.set_minor_locator(matplotlib.ticker.NullLocator())
         ax.set_xlabel("ensemble size (members)")
-        ax.set_ylabel(f"tuned {metric.replace('_', ' ')} ({STATE_UNITS})")
+        ax.set_ylabel(f"best time-mean analysis RMSE ({STATE_UNITS})")
         ax.set_title("Best-tuned error against ensemble size (95% intervals)")
-        ax.legend()
+        ax.legend(fontsize=8)
         return _save(fig, path)
 
 
-def rank_histograms(best: list, path: str, name: str = "rank_truth_forecast") -> str:
-    """Relative frequency of the truth's rank among the forecast members, one panel per row."""
-    rows = [r for r in best if name in r.totals][:6]
+def rank_histograms(points: list, path: str, name: str = "rank_truth_forecast") -> str:
+    """Relative frequency of the truth's rank among the forecast members at each best setting."""
+    chosen = [p for p in points if p.best is not None and p.best.totals(name) is not None][:MAX_PANELS]
+    count = max(1, len(chosen))
     with matplotlib.rc_context(STYLE):
-        fig, axes = _axes(1, max(1, len(rows)), squeeze=False, figsize=(2.6 * max(1, len(rows)), 2.8),
-                          layout="constrained")
-        for ax, row in zip(axes[0], rows):
-            counts = np.asarray(row.totals[name]).sum(axis=0).astype(float)
+        fig, axes = _axes(1, count, squeeze=False, figsize=(2.7 * count, 2.9), layout="constrained")
+        for ax, point in zip(axes[0], chosen):
+            counts = np.asarray(point.best.totals(name), float)
             frequency = counts / counts.sum()
-            ax.bar(np.arange(counts.size), frequency, width=0.85, color=PALETTE[0])
-            ax.axhline(1.0 / counts.size, color=PALETTE[1], lw=1.0, ls="--")
-            ax.set_title(_label(row))
-        fig.supxlabel("rank of the truth among the forecast members (0 = below all), count", fontsize=9)
-        axes[0][0].set_ylabel("relative frequency (1)")
-        fig.suptitle("Rank histograms after burn-in (dashed: flat)", fontsize=10, fontweight="bold")
+            ranks = np.arange(counts.size)
+            ax.bar(ranks, frequency, width=0.85, color=OKABE_ITO["blue"])
+            ax.axhline(1.0 / counts.size, color=OKABE_ITO["vermillion"], lw=1.0, ls="--")
+            ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(nbins=6, integer=True))
+            ax.set_xlim(-0.6, counts.size - 0.4)
+            ax.set_title(point.name, fontsize=9)
+        fig.supxlabel("rank of the truth among the forecast members (0: below every member)", fontsize=9)
+        axes[0][0].set_ylabel("relative frequency")
+        fig.suptitle("Rank histograms at the best settings, after burn-in (dashed: flat)", fontsize=10,
+                     fontweight="bold")
         return _save(fig, path)
 
 
-def spread_against_error(rows: list, path: str) -> str:
-    """Time-mean analysis spread against RMSE for every setting that kept all replicates."""
-    kept = [r for r in rows if not r.lost]
+def spread_against_error(points: list, path: str) -> str:
+    """Time-mean analysis spread against RMSE for every setting that kept all replicates, each point
+    labelled by its swept values; one colour per static point."""
     with matplotlib.rc_context(STYLE):
-        fig, ax = _axes(figsize=(4.4, 4.0))
-        colours = _colour([r.filter for r in kept])
-        for name, colour in colours.items():
-            mine = [r for r in kept if r.filter == name]
-            ax.scatter([r.summary["rmse_analysis"] for r in mine], [r.summary["spread_analysis"] for r in mine],
-                       s=16, color=colour, label=name, alpha=0.85)
-        values = [v for r in kept for v in (r.summary["rmse_analysis"], r.summary["spread_analysis"])]
-        if values:
-            top = max(values) * 1.05
-            ax.plot([0, top], [0, top], color="#888888", lw=0.8, ls=":", label="spread = RMSE")
-            ax.set_xlim(0, top)
-            ax.set_ylim(0, top)
+        fig, ax = _axes(figsize=(5.6, 5.0))
+        palette = colours([p.name for p in points])
+        values = []
+        lost = 0
+        for point in points:
+            kept = [s for s in point.settings if not s.lost and s.has("spread_analysis")]
+            lost += len(point.settings) - len(kept)
+            if not kept:
+                continue
+            x = [s.value("rmse_analysis") for s in kept]
+            y = [s.value("spread_analysis") for s in kept]
+            ax.scatter(x, y, s=18, color=palette[point.name], label=point.name, alpha=0.9, zorder=3)
+            for s, xi, yi in zip(kept, x, y):
+                if point.tuned_keys:
+                    text = ", ".join(value_text(s.config.get(k)) for k in point.tuned_keys)
+                    ax.annotate(text, (xi, yi), xytext=(3, 3), textcoords="offset points", fontsize=6.5,
+                                color=palette[point.name])
+            values += x + y
+        finite = [v for v in values if np.isfinite(v)]
+        if finite:
+            # Zoomed on the points (not from 0), so that their labels can be read; same scale on both axes.
+            low, top = min(finite) * 0.92, max(finite) * 1.08
+            ax.plot([low, top], [low, top], color=NEUTRAL, lw=0.8, ls=":", label="spread = RMSE")
+            ax.set_xlim(low, top)
+            ax.set_ylim(low, top)
+            ax.set_aspect("equal")
+        keys = list(dict.fromkeys(k for p in points for k in p.tuned_keys))
+        labels = f": {', '.join(setting_word(k) for k in keys)}" if keys else ""
+        dropped = f"; {lost} lost setting{'s' if lost != 1 else ''} not shown" if lost else ""
         ax.set_xlabel(f"time-mean analysis RMSE ({STATE_UNITS})")
         ax.set_ylabel(f"time-mean analysis spread ({STATE_UNITS})")
-        ax.set_title("Spread against error")
-        ax.legend(fontsize=8)
+        ax.set_title(f"Spread against error\n(points labelled by their settings{labels}{dropped})", fontsize=9)
+        if finite:
+            ax.legend(fontsize=8, loc="upper left")
+        else:
+            ax.text(0.5, 0.5, "every setting lost a replicate", ha="center", va="center", transform=ax.transAxes)
         return _save(fig, path)

@@ -1,144 +1,151 @@
-"""Tables of a report: the tidy table, the tuned curve and paired differences.
+"""Tables of a report, as records (dicts) for CSV and Markdown.
 
-Tuned curve: for every experiment, filter and ensemble size, the setting with
-the lowest time-mean analysis RMSE among the settings none of whose
-replicates diverged (common practice in tuning studies: best over the swept
-inflation / localization values).
+- settings: one record per setting pooled over seeds (summary.csv);
+- runs: one record per run, i.e. per lane of each file and seed (runs.csv);
+- decisions: the best and runner-up at every static point (tuned.csv);
+- comparisons: paired differences with verdicts (paired.csv).
 
-Paired difference of two tuned filters of the same experiment: they saw the
-same truth and observations, so the difference d_r(k) = e_A,r(k) - e_B,r(k)
-of their per-cycle analysis RMSE is formed cycle by cycle and replicate by
-replicate, and its time mean after burn-in gets the same batch-means 95%
-interval as every other time mean (:mod:`assimbench.twin.summaries`). Pairing
-removes the variability the two filters share (the weather of the truth and
-the observation noise), so the interval is much narrower than one formed from
-the two separate intervals.
+Numbers stay numbers in the CSV files: a time mean has its own column and its
+95% limits columns ``<name>_low`` and ``<name>_high``. Only the Markdown
+tables write "mean +- half-width", for reading.
 """
 
 import csv
 import io
-import itertools
 
 import numpy as np
 
-from assimbench.report.collect import Row, varied_settings
-from assimbench.twin.summaries import TimeMeans
+from assimbench.report.collect import varied_settings
+from assimbench.report.decide import distinguishable, setting_text
+from assimbench.report.words import metric_word
 
-METRICS = (
-    ("rmse_analysis", "analysis RMSE"),
-    ("spread_analysis", "analysis spread"),
-    ("spread_skill_ratio_analysis", "spread / RMSE"),
-    ("rmse_forecast", "forecast RMSE"),
-    ("crps_analysis", "analysis CRPS"),
-    ("innovation_ratio", "innovation ratio"),
-)
-WITH_INTERVAL = ("rmse_analysis", "spread_analysis", "rmse_forecast", "crps_analysis", "innovation_ratio")
+METRICS = ("rmse_analysis", "spread_analysis", "rmse_forecast", "crps_analysis", "innovation_ratio")
+SPREAD_OVER_RMSE = "spread_over_rmse_analysis"
 
 
-def tidy_table(rows: list) -> tuple:
-    """(columns, records): one record per row: experiment, filter, members, the varied
-    settings, the metrics with their 95% limits, lost replicates, file and lane."""
-    settings = varied_settings(rows)
-    columns = ["experiment", "filter", "members"] + settings + ["replicates"]
-    for name, _ in METRICS:
-        columns.append(name)
-        if name in WITH_INTERVAL:
-            columns += [name + "_low", name + "_high"]
-    columns += ["lost_replicates", "file", "lane"]
+def settings_table(settings: list) -> tuple:
+    """(columns, records): experiment, filter, members, the varied settings, seeds, replicates, every
+    metric with its 95% limits, the spread / RMSE ratio of the time means, lost replicates and why."""
+    keys = varied_settings([s.rows[0] for s in settings])
+    columns = ["experiment", "filter", "members"] + keys + ["seeds", "replicates"]
+    for name in METRICS:
+        columns += [name, name + "_low", name + "_high"]
+    columns += [SPREAD_OVER_RMSE, "lost_replicates", "lost_reasons"]
     records = []
-    for row in rows:
-        record = {"experiment": row.experiment, "filter": row.filter, "members": row.members,
-                  "replicates": len(row.first_bad_cycle), "lost_replicates": row.lost,
-                  "file": row.path, "lane": row.lane if row.lane >= 0 else ""}
-        record.update({key: row.config.get(key, "") for key in settings})
-        for name in columns:
-            if name not in record:
-                record[name] = row.summary.get(name, float("nan"))
+    for s in settings:
+        record = {"experiment": s.experiment, "filter": s.filter, "members": s.members,
+                  "seeds": " ".join(str(seed) for seed in s.seeds), "replicates": s.replicates,
+                  SPREAD_OVER_RMSE: s.spread_over_rmse(), "lost_replicates": s.lost,
+                  "lost_reasons": "; ".join(s.lost_reasons)}
+        record.update({k: s.config.get(k, "") for k in keys})
+        for name in METRICS:
+            record[name], record[name + "_low"], record[name + "_high"] = s.estimate(name)
         records.append(record)
-    records.sort(key=lambda r: (r["experiment"], r["filter"], r["members"] or 0, *(str(r[k]) for k in settings)))
+    records.sort(key=lambda r: (r["experiment"], r["filter"], r["members"] or 0, *(str(r[k]) for k in keys)))
     return columns, records
 
 
-def tuned(rows: list, metric: str = "rmse_analysis") -> list:
-    """The best row per (experiment, filter, members) among rows with no lost replicate."""
-    best = {}
-    for row in rows:
-        if row.lost or not np.isfinite(row.summary.get(metric, np.nan)):
-            continue
-        key = (row.experiment, row.filter, row.members or 0)
-        if key not in best or row.summary[metric] < best[key].summary[metric]:
-            best[key] = row
-    return [best[k] for k in sorted(best)]
-
-
-def paired_difference(a: Row, b: Row, metric: str = "rmse_analysis") -> dict:
-    """Time mean of a's minus b's per-cycle ``metric`` (same truth and observations) with its interval."""
-    da, db = a.series(metric), b.series(metric)
-    difference = da - db  # (R, K)
-    cycles = difference.shape[1]
-    burn_in = int(a.config.get("burn_in", 0))
-    means = TimeMeans(difference.shape[0], cycles, burn_in)
-    means.add("d", difference, 1)
-    out = means.summarise("d")
-    return {"mean": out["mean"], "low": out["low"], "high": out["high"]}
-
-
-def paired_table(best: list, metric: str = "rmse_analysis") -> list:
-    """Every pair of tuned filters with the same experiment and ensemble size."""
+def runs_table(rows: list) -> tuple:
+    """(columns, records): one record per run (lane of a file), with its seed, file and lane."""
+    keys = varied_settings(rows)
+    columns = ["experiment", "filter", "members"] + keys + ["seed", "replicates", "rmse_analysis",
+                                                            "rmse_analysis_low", "rmse_analysis_high",
+                                                            "blown_up_replicates", "file", "lane"]
     records = []
-    groups = itertools.groupby(sorted(best, key=lambda r: (r.experiment, r.members or 0)),
-                               key=lambda r: (r.experiment, r.members or 0))
-    for (experiment, members), group in groups:
-        for a, b in itertools.combinations(sorted(group, key=lambda r: r.filter), 2):
-            d = paired_difference(a, b, metric)
-            if d["low"] > 0:
-                verdict = f"{b.filter} lower"
-            elif d["high"] < 0:
-                verdict = f"{a.filter} lower"
-            else:
-                verdict = "no clear difference"
-            records.append({"experiment": experiment, "members": members, "a": a.filter, "b": b.filter,
-                            "difference": d["mean"], "low": d["low"], "high": d["high"], "verdict": verdict})
+    for row in rows:
+        record = {"experiment": row.experiment, "filter": row.filter, "members": row.members, "seed": row.seed,
+                  "replicates": len(row.first_bad_cycle), "blown_up_replicates": row.blown_up, "file": row.path,
+                  "lane": row.lane if row.lane >= 0 else ""}
+        record.update({k: row.config.get(k, "") for k in keys})
+        for name in ("rmse_analysis", "rmse_analysis_low", "rmse_analysis_high"):
+            record[name] = row.summary.get(name, float("nan"))
+        records.append(record)
+    return columns, records
+
+
+def decisions_table(points: list) -> tuple:
+    """(columns, records): per static point the best setting's values and time means, the runner-up,
+    their paired difference (best minus runner-up) with its interval, and whether they differ."""
+    tuned_keys = sorted({k for p in points for k in p.tuned_keys})
+    static_keys = sorted({k for p in points for k, _ in p.static})
+    columns = (["experiment", "filter", "members"] + static_keys + tuned_keys +
+               ["rmse_analysis", "rmse_analysis_low", "rmse_analysis_high", "spread_analysis", SPREAD_OVER_RMSE,
+                "runner_up", "runner_up_rmse_analysis", "difference", "difference_low", "difference_high",
+                "distinguishable", "candidates", "lost_settings"])
+    records = []
+    for p in points:
+        record = {"experiment": p.experiment, "filter": p.filter, "members": p.members, **dict(p.static),
+                  "candidates": len(p.settings) - len(p.lost), "lost_settings": len(p.lost)}
+        if p.best is not None:
+            record.update({k: p.best.config.get(k, "") for k in tuned_keys if k in p.tuned_keys})
+            (record["rmse_analysis"], record["rmse_analysis_low"],
+             record["rmse_analysis_high"]) = p.best.estimate("rmse_analysis")
+            record["spread_analysis"] = p.best.value("spread_analysis")
+            record[SPREAD_OVER_RMSE] = p.best.spread_over_rmse()
+        if p.runner_up is not None:
+            record["runner_up"] = setting_text(p.runner_up, p.tuned_keys)
+            record["runner_up_rmse_analysis"] = p.runner_up.value("rmse_analysis")
+            if p.difference is not None:
+                record.update({"difference": p.difference["mean"], "difference_low": p.difference["low"],
+                               "difference_high": p.difference["high"]})
+            record["distinguishable"] = "yes" if distinguishable(p.difference) else "no"
+        records.append(record)
+    return columns, records
+
+
+COMPARISON_COLUMNS = ["experiment", "kind", "a", "b", "difference", "low", "high", "seeds", "verdict"]
+
+
+def comparisons_table(comparisons: list) -> list:
+    """Records of paired comparisons a minus b (analysis RMSE)."""
+    records = []
+    for c in comparisons:
+        d = c.difference or {}
+        records.append({"experiment": c.experiment, "kind": c.kind, "a": c.a, "b": c.b,
+                        "difference": d.get("mean", float("nan")), "low": d.get("low", float("nan")),
+                        "high": d.get("high", float("nan")), "seeds": " ".join(map(str, d.get("seeds", []))),
+                        "verdict": c.verdict})
     return records
 
 
 def _text(value) -> str:
     if isinstance(value, float):
         return "" if np.isnan(value) else f"{value:.4g}"
-    return str(value)
+    return "" if value is None else str(value)
 
 
 def to_csv(columns: list, records: list) -> str:
+    """CSV text; floats written in full (repr), missing values empty."""
     out = io.StringIO()
     writer = csv.DictWriter(out, fieldnames=columns, extrasaction="ignore", lineterminator="\n")
     writer.writeheader()
     for record in records:
-        writer.writerow({k: (repr(v) if isinstance(v, float) else v) for k, v in record.items()})
+        writer.writerow({k: ("" if isinstance(v, float) and np.isnan(v) else repr(v) if isinstance(v, float) else v)
+                         for k, v in record.items()})
     return out.getvalue()
 
 
-def to_markdown(columns: list, records: list) -> str:
-    lines = ["| " + " | ".join(columns) + " |", "|" + "|".join("---" for _ in columns) + "|"]
+def to_markdown(columns: list, records: list, headers: dict | None = None) -> str:
+    headers = headers or {}
+    lines = ["| " + " | ".join(headers.get(c, c) for c in columns) + " |", "|" + "|".join("---" for _ in columns) + "|"]
     for record in records:
         lines.append("| " + " | ".join(_text(record.get(c, "")) for c in columns) + " |")
     return "\n".join(lines) + "\n"
 
 
 def with_interval(mean: float, low: float, high: float) -> str:
-    if not np.isfinite(low):
+    """"0.1862 +- 0.0063" (the half-width of the 95% interval), or the mean alone without one."""
+    if not np.isfinite(mean):
+        return "not finite"
+    if not (np.isfinite(low) and np.isfinite(high)):
         return f"{mean:.4f}"
     return f"{mean:.4f} +- {(high - low) / 2:.4f}"
 
 
-def tuned_records(best: list, settings: list, metric: str = "rmse_analysis") -> tuple:
-    """(columns, records) of the tuned curve for Markdown/CSV."""
-    columns = ["experiment", "filter", "members"] + settings + [metric + " (95%)", "spread_analysis"]
-    records = []
-    for row in best:
-        s = row.summary
-        record = {"experiment": row.experiment, "filter": row.filter, "members": row.members,
-                  metric + " (95%)": with_interval(s[metric], s.get(metric + "_low", np.nan), s.get(metric + "_high", np.nan)),
-                  "spread_analysis": s.get("spread_analysis", np.nan)}
-        record.update({k: row.config.get(k, "") for k in settings})
-        records.append(record)
-    return columns, records
+def interval_text(mean: float, low: float, high: float) -> str:
+    """"-0.0041 [-0.0059, -0.0023]" for a paired difference."""
+    return f"{mean:+.4f} [{low:+.4f}, {high:+.4f}]"
+
+
+def metric_header(name: str) -> str:
+    return f"{metric_word(name)} (95%)"

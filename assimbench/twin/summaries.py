@@ -86,6 +86,28 @@ class TimeMeans:
         }
 
 
+def batch_count(cycles: int, burn_in: int, batches: int = DEFAULT_BATCHES) -> int:
+    """The number of batches :class:`TimeMeans` cuts ``cycles - burn_in`` cycles into."""
+    return max(1, min(batches, cycles - burn_in))
+
+
+def pooled_interval(means: np.ndarray, halfwidths: np.ndarray, batches: int) -> tuple:
+    """(mean, low, high) over independent replicates from their time means and half-widths.
+
+    The same rule as :meth:`TimeMeans.summarise`, recovered from what a result
+    file stores: SE_r = halfwidth_r / t(0.975, B - 1), SE = sqrt(sum_r SE_r^2) / R,
+    interval mean +- t(0.975, R (B - 1)) SE. Used to pool replicates of
+    several runs (seeds) that share everything but the truth's draw.
+    """
+    means, halfwidths = np.asarray(means, float), np.asarray(halfwidths, float)
+    mean = float(means.mean())
+    if batches < 2:
+        return mean, float("nan"), float("nan")
+    se = halfwidths / stdtrit(batches - 1, 0.975)
+    half = float(stdtrit(means.size * (batches - 1), 0.975) * np.sqrt(np.sum(se**2)) / means.size)
+    return mean, mean - half, mean + half
+
+
 def batch_means_interval(series: np.ndarray, batches: int = DEFAULT_BATCHES):
     """(mean, low, high) of one 1-D series by batch means; the same rule as TimeMeans."""
     acc = TimeMeans(1, series.shape[0], 0, batches)

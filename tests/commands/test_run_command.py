@@ -130,6 +130,11 @@ def test_the_demo_runs_end_to_end_with_no_arguments(tmp_path):
     assert done.returncode == 0, done.stderr
     out = done.stdout
     assert "RMSE" in out and "spread" in out and "result:" in out
+    # What a reader needs to judge the numbers: the settings in force and the reference levels.
+    assert "settings            inflation 1.03" in out and "error std 1" in out
+    assert "references          observation error 1.0000, climatology" in out
+    assert "x the observation error" in out and "better than both" in out
+    assert "spread / RMSE" in out and "(ratio of the time means)" in out
     path = out.split("result:")[1].split()[0]
     assert os.path.isfile(path) and path.startswith(str(tmp_path))
     with h5py.File(path, "r") as f:
@@ -219,3 +224,14 @@ def test_the_lyapunov_command_help_prints_and_exits_zero(tmp_path):
     command = [script] if os.path.exists(script) else [sys.executable, "-m", "assimbench.commands.lyapunov"]
     done = subprocess.run(command + ["--help"], cwd=tmp_path, capture_output=True, text=True, timeout=300)
     assert done.returncode == 0 and "assimbench-lyapunov" in done.stdout, done.stdout + done.stderr
+
+
+@pytest.mark.parametrize("rmse, verdict", [(0.2, "better than both"), (2.0, "better than climatology; NOT better than the observation error"),
+                                           (4.6, "NOT better than the observation error or climatology")])
+def test_the_printed_summary_places_the_analysis_error_against_its_reference_levels(rmse, verdict):
+    from assimbench.commands.run import reference_lines
+
+    config = {"observation": {"error_std": 1.0, "transform": "identity"}}
+    lines = reference_lines({"rmse_analysis": rmse}, config, 3.6)
+    assert lines[0].split(None, 1)[1] == "observation error 1.0000, climatology 3.6000 (RMSE of the climatological mean)"
+    assert lines[1].endswith(f"{rmse:.2f} x the observation error, {rmse / 3.6:.2f} x climatology: {verdict}")

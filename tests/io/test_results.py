@@ -48,6 +48,22 @@ def test_xarray_opens_the_file_with_named_dimensions(stored):
             assert ds[name].attrs["long_name"] and ds[name].attrs["units"]
 
 
+def test_the_summary_group_reads_alone_with_coordinates_labels_units_and_integer_flags(stored):
+    """netCDF readers open the summary group by itself: it needs its own coordinates; the flags
+    complete/diverged are integers (netCDF libraries drop HDF5's boolean enum)."""
+    _, path = stored
+    with xr.open_dataset(path, engine="h5netcdf", group="summary") as ds:
+        assert ds["rmse_analysis"].dims == ("replicate",) and list(ds["replicate"].values) == [0, 1]
+        assert "replicate" in ds.coords and "rank" in ds.coords
+        assert ds["rmse_analysis"].attrs["units"] == "state units"
+        assert ds["rmse_analysis_halfwidth"].attrs["long_name"].startswith("half-width of the 95% interval")
+        assert ds["rmse_analysis_halfwidth"].attrs["units"] == "state units"
+    with h5py.File(path, "r") as f:
+        for flag in ("complete", "diverged"):
+            assert f.attrs[flag].dtype.kind == "i" and f.attrs[flag] in (0, 1)
+    assert set(read_result(str(path)).per_replicate) == {n for n in stored[0].per_replicate}
+
+
 def test_provenance_is_enough_to_rerun_the_experiment(stored):
     """The stored YAML config composes back to the same experiment and gives the same numbers."""
     result, path = stored

@@ -1,0 +1,84 @@
+"""Plain words for config keys, metrics and filters, for the report's tables, figures and lines.
+
+A reader of a report should see "inflation 1.05" and "analysis RMSE", not
+"filter.inflation=1.05" and "rmse_analysis". Every text here is a label only:
+the CSV files keep the config keys as column names, so scripts can find them.
+"""
+
+SETTING_WORDS = {
+    "filter.members": "ensemble size",
+    "filter.inflation": "inflation",
+    "filter.radius": "localization radius",
+    "filter.additive_std": "additive noise",
+    "filter.rtpp": "RTPP",
+    "filter.rtps": "RTPS",
+    "filter.b_scale": "B scale",
+    "filter.jitter": "jitter",
+    "filter.ess_threshold": "resampling threshold",
+    "filter.adaptive": "adaptive inflation",
+    "filter.window": "window",
+    "observation.error_std": "observation error",
+    "initial_spread": "initial spread",
+    "truth_noise_std": "truth model error",
+}
+
+METRIC_WORDS = {
+    "rmse_analysis": "analysis RMSE",
+    "rmse_forecast": "forecast RMSE",
+    "spread_analysis": "analysis spread",
+    "spread_forecast": "forecast spread",
+    "crps_analysis": "analysis CRPS",
+    "innovation_ratio": "innovation ratio",
+}
+
+FILTER_WORDS = {
+    "3dvar": "3D-Var",
+    "4dvar": "4D-Var",
+    "enkf": "EnKF",
+    "enkfn": "EnKF-N",
+    "ensrf": "EnSRF",
+    "denkf": "DEnKF",
+    "free": "free run",
+    "climatology": "climatology",
+}
+
+
+def setting_word(key: str) -> str:
+    """"filter.inflation" -> "inflation"; an unlisted key reads as its last part in words."""
+    if key in SETTING_WORDS:
+        return SETTING_WORDS[key]
+    section, _, leaf = key.rpartition(".")
+    words = leaf.replace("_", " ")
+    return f"forecast model {words}" if section == "forecast_model" else words
+
+
+def metric_word(name: str) -> str:
+    return METRIC_WORDS.get(name, name.replace("_", " "))
+
+
+def filter_word(name: str) -> str:
+    return FILTER_WORDS.get(name, name.upper())
+
+
+def value_text(value) -> str:
+    """A setting's value as a reader writes it: 1.05, 20, none, yes."""
+    if value is None:
+        return "none"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float):
+        return f"{value:g}"
+    return str(value)
+
+
+def describe(config: dict, keys) -> str:
+    """"inflation 1.05, localization radius 4" for the given keys of a flattened config."""
+    return ", ".join(f"{setting_word(k)} {value_text(config.get(k))}" for k in keys)
+
+
+def point_name(filter_name: str, members, extras: str = "") -> str:
+    """"ETKF, 20 members" (plus any other static settings in words)."""
+    text = filter_word(filter_name)
+    if members:
+        text += f", {members} members"
+    return f"{text}, {extras}" if extras else text
