@@ -36,10 +36,11 @@ from assimbench.report.tables import (
     to_markdown,
     with_interval,
 )
-from assimbench.report.words import describe, setting_word
+from assimbench.report.words import describe
 
 COMMAND = "assimbench-report"
 EXIT_BAD_INPUT = 2
+DEFAULT_LEVEL = FailingLevel()
 
 
 class ReportError(ValueError):
@@ -96,7 +97,7 @@ def heat_maps(points: list, out: str, tag: str) -> list:
     by_filter = {}
     for p in points:
         by_filter.setdefault((p.filter, p.static), []).append(p)
-    for (name, static), mine in sorted(by_filter.items(), key=lambda item: repr(item[0])):
+    for (name, _static), mine in sorted(by_filter.items(), key=lambda item: repr(item[0])):
         settings = [s for p in mine for s in p.settings]
         tuned = [k for k in dict.fromkeys(k for p in mine for k in p.tuned_keys)
                  if all(_numeric(s.config.get(k)) for s in settings)]
@@ -123,7 +124,7 @@ def heat_maps(points: list, out: str, tag: str) -> list:
     return written
 
 
-def build_report(paths: list, out: str, failing: FailingLevel = FailingLevel()) -> tuple:
+def build_report(paths: list, out: str, failing: FailingLevel = DEFAULT_LEVEL) -> tuple:
     """Write the report; returns (written files, problems, points, comparisons).
     Raises ReportError when no file is readable."""
     rows, problems = collect(paths)

@@ -116,10 +116,10 @@ def decide(settings: list, metric: str = METRIC) -> list:
         static_keys = _static_keys(mine)
         tuned_keys = [k for k in varied_settings([s.rows[0] for s in mine]) if k not in static_keys]
 
-        def where(s):
+        def where(s, static_keys=static_keys):
             return (s.filter, s.members or 0, tuple((k, repr(s.config.get(k))) for k in static_keys))
 
-        for key, group in itertools.groupby(sorted(mine, key=where), key=where):
+        for _key, group in itertools.groupby(sorted(mine, key=where), key=where):
             group = list(group)
             static = tuple((k, group[0].config.get(k)) for k in static_keys)
             point = Point(experiment, static, group, [k for k in tuned_keys

@@ -146,9 +146,10 @@ def lost_reasons(setting: Setting, failing: FailingLevel) -> list:
     return reasons
 
 
-def pool(rows: list, failing: FailingLevel = FailingLevel()) -> tuple:
+def pool(rows: list, failing: FailingLevel | None = None) -> tuple:
     """(settings, notes): rows pooled into settings per experiment; a second row of the same setting
     and seed (the same run twice) is left out with a note."""
+    failing = failing or FailingLevel()
     settings, notes = [], []
     ordered = sorted(rows, key=lambda r: (r.experiment, setting_key(r), r.seed))
     for (experiment, _), group in itertools.groupby(ordered, key=lambda r: (r.experiment, setting_key(r))):
