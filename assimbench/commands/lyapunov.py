@@ -4,6 +4,8 @@ A Hydra app over the same ``model`` options (primary config
 ``configs/lyapunov.yaml``), e.g. ``assimbench-lyapunov model=lorenz63 time=2000
 output=l63.h5``. Writes the spectrum file (:mod:`assimbench.io.spectrum`)
 and prints a short table. Bad input: one line, exit status 2, nothing written.
+A user's own file runs as for ``assimbench`` (``--config-path DIR
+--config-name NAME``), starting from ``defaults: [lyapunov, _self_]``.
 """
 
 import os
@@ -62,7 +64,7 @@ def _app(cfg: DictConfig) -> None:
 
 def main(argv=None) -> int:
     """Entry point of the ``assimbench-lyapunov`` console script."""
-    return run_command(COMMAND, argv, _app, lambda args: compose_jobs(args, config_name="lyapunov"))
+    return run_command(COMMAND, argv, _app, lambda args: compose_jobs(args, config_name="lyapunov"), base="lyapunov")
 
 
 if __name__ == "__main__":

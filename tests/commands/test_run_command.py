@@ -219,3 +219,112 @@ def test_the_lyapunov_command_help_prints_and_exits_zero(tmp_path):
     command = [script] if os.path.exists(script) else [sys.executable, "-m", "assimbench.commands.lyapunov"]
     done = subprocess.run(command + ["--help"], cwd=tmp_path, capture_output=True, text=True, timeout=300)
     assert done.returncode == 0 and "assimbench-lyapunov" in done.stdout, done.stdout + done.stderr
+
+
+RING_STUDY = """\
+defaults:
+  - config
+  - override model: lorenz63
+  - _self_
+filter:
+  members: 6
+cycles: 20
+burn_in: 5
+"""
+
+
+def _study(tmp_path, text, name="ring"):
+    folder = tmp_path / "studies"
+    folder.mkdir(exist_ok=True)
+    (folder / f"{name}.yaml").write_text(text)
+    return folder
+
+
+def test_a_users_config_file_runs_end_to_end_and_its_rerun_is_found_complete(tmp_path):
+    """A relative --config-path is taken from the current folder; the file starts from the package's
+    config and picks a group; the pre-flight composes the same config as the job (same config_hash)."""
+    _study(tmp_path, RING_STUDY)
+    command = ["-m", "--config-path", "studies", "--config-name", "ring", "seed=3", "hydra.sweep.dir=sweeps/ring"]
+    done = _run(command, tmp_path)
+    assert done.returncode == 0, done.stderr
+    files = list((tmp_path / "sweeps" / "ring").glob("*/result.h5"))
+    assert len(files) == 1
+    with h5py.File(files[0], "r") as f:
+        assert f.attrs["complete"]
+        assert f["rmse_analysis"].shape == (1, 20)
+        config = f.attrs["config"]
+    assert "name: lorenz63" in config and "members: 6" in config and "seed: 3" in config
+    again = _run(command, tmp_path)
+    assert again.returncode == 0, again.stderr
+    assert "1 of 1 jobs already have a complete result" in again.stderr  # the pre-flight's hash
+    assert again.stdout.count("skipped:") == 1  # the job's hash: the same config
+
+
+USER_FILE_FAULTS = [
+    ("defaults: [config, _self_]\ncycles: abc\n", ["cycles", "Integer"]),
+    ("defaults: [config, _self_]\nfilter:\n  members: 1\n", ["filter.members=1", ">= 2"]),
+    ("defaults: [config, _self_]\nfilter:\n  membres: 3\n", ["filter.membres", "did you mean filter.members"]),
+    ("defaults: [config, _self_]\ncylces: 3\n", ["cylces", "did you mean cycles"]),
+    ("defaults:\n  - config\n  - override filter: kalman\n  - _self_\n", ["kalman"]),
+    ("cycles: 20\n", ["ring.yaml", "defaults: [config, _self_]"]),
+    ("defaults: [_self_, config]\ncycles: 20\n", ["ring.yaml", "defaults: [config, _self_]"]),
+    ("defaults: [config\n", ["ring.yaml", "not valid YAML"]),
+]
+
+
+@pytest.mark.parametrize("text, words", USER_FILE_FAULTS, ids=[t.splitlines()[-1] for t, _ in USER_FILE_FAULTS])
+def test_a_bad_value_in_a_users_file_is_one_line_naming_the_key(text, words, tmp_path, monkeypatch, capsys):
+    _study(tmp_path, text)
+    monkeypatch.chdir(tmp_path)
+    status = cli.main(["--config-path", "studies", "--config-name", "ring"])
+    captured = capsys.readouterr()
+    assert status == 2
+    lines = captured.err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("assimbench: error: "), captured.err
+    for word in words:
+        assert word in lines[0], (word, lines[0])
+    assert [p.name for p in tmp_path.iterdir()] == ["studies"]  # nothing written
+
+
+@pytest.mark.parametrize("args, words", [
+    (["--config-path", "studies", "--config-name", "missing"], ["missing.yaml", "studies"]),
+    (["--config-path", "nowhere", "--config-name", "ring"], ["--config-path nowhere", "no such folder"]),
+    (["--config-path", "studies"], ["--config-name NAME", "NAME.yaml"]),
+    (["--config-path", "studies", "--config-name", "config"], ["config.yaml", "package's own"]),
+    (["--config-name", "ring"], ["folder of ring.yaml", "--config-path"]),
+    (["--config-path", "studies", "--config-name", "ring", "hydra.searchpath=[x]"], ["set by the command", "--config-dir"]),
+])
+def test_a_missing_users_file_or_folder_is_one_line(args, words, tmp_path, monkeypatch, capsys):
+    _study(tmp_path, RING_STUDY)
+    monkeypatch.chdir(tmp_path)
+    status = cli.main(args)
+    captured = capsys.readouterr()
+    lines = captured.err.strip().splitlines()
+    assert status == 2 and len(lines) == 1 and lines[0].startswith("assimbench: error: "), captured.err
+    for word in words:
+        assert word in lines[0], (word, lines[0])
+    assert [p.name for p in tmp_path.iterdir()] == ["studies"]
+
+
+def test_a_users_file_found_through_config_dir_can_be_overridden(tmp_path, monkeypatch, capsys):
+    """--config-dir: the file is looked for there too; command-line overrides come after the file."""
+    _study(tmp_path, RING_STUDY)
+    monkeypatch.chdir(tmp_path)
+    status = cli.main(["--config-dir", "studies", "--config-name", "ring", "--cfg", "job", "filter.members=7"])
+    out = capsys.readouterr().out
+    assert status == 0
+    assert "name: lorenz63" in out and "members: 7" in out and "cycles: 20" in out
+
+
+def test_the_lyapunov_command_runs_a_users_file(tmp_path):
+    _study(tmp_path, "defaults:\n  - lyapunov\n  - override model: lorenz63\n  - _self_\ntime: 5\nblocks: 10\noutput: l63.h5\n",
+           name="short")
+    script = os.path.join(os.path.dirname(sys.executable), "assimbench-lyapunov")
+    command = [script] if os.path.exists(script) else [sys.executable, "-m", "assimbench.commands.lyapunov"]
+    done = subprocess.run(command + ["--config-path", "studies", "--config-name", "short"], cwd=tmp_path,
+                          capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert "lorenz63 (n=3), 3 exponents averaged over 5 model time units" in done.stdout
+    bad = subprocess.run(command + ["--config-path", "studies", "--config-name", "short", "time=-1"], cwd=tmp_path,
+                         capture_output=True, text=True, timeout=300)
+    assert bad.returncode == 2 and bad.stderr.strip().count("\n") == 0 and "time" in bad.stderr, bad.stderr
