@@ -31,6 +31,7 @@ from omegaconf import OmegaConf
 
 from assimbench.config.checks import ConfigError
 from assimbench.config.composition import compose_job, config_dir, register_schemas
+from assimbench.io.atomic import unwritable
 
 EXIT_BAD_INPUT = 2
 MAX_FOLDER_NAME = 120
@@ -102,6 +103,43 @@ def compose_jobs(argv: list[str], config_name: str = "config", with_hydra: bool 
                         base=config_name)
             for job in expand_jobs(list(args.overrides), args.multirun)]
     return args, jobs if with_hydra else [cfg for cfg, _ in jobs]
+
+
+def job_folder_of(hydra_node, multirun: bool) -> str:
+    """The folder Hydra makes for a job: ``hydra.run.dir``, or ``hydra.sweep.dir``/its subdir."""
+    if multirun:
+        return os.path.join(str(hydra_node.sweep.dir), str(hydra_node.sweep.subdir))
+    return str(hydra_node.run.dir)
+
+
+def check_folders(args, jobs) -> None:
+    """ConfigError (one line) when a job's folder or its output's folder cannot be written: asked
+    before Hydra makes any folder, so a refused command leaves nothing behind (no ``.hydra``, no
+    log). Missing folders are fine when they can be made; an output's missing parents are made."""
+    setting = "hydra.sweep.dir" if args.multirun else "hydra.run.dir"
+    for cfg, hydra_node in jobs:
+        folder = job_folder_of(hydra_node, args.multirun)
+        problem = unwritable(folder)
+        if problem:
+            raise ConfigError(f"{problem}; choose another {setting}")
+        output = cfg.get("output")
+        if output is None:
+            continue
+        path = os.path.join(folder, str(output))  # an absolute output is taken as given
+        if os.path.isdir(path):
+            raise ConfigError(f"output={output}: {os.path.abspath(path)} is a folder; give the path of a file")
+        problem = unwritable(os.path.dirname(path))
+        if problem:
+            raise ConfigError(f"{problem}; choose another output")
+
+
+def preflight_jobs(argv: list[str], config_name: str = "config") -> tuple:
+    """(parsed arguments, (config, Hydra's node) of every job): composed, checked, and their folders
+    found writable, unless the call only prints."""
+    args, jobs = compose_jobs(argv, config_name, with_hydra=True)
+    if not informational(args):
+        check_folders(args, jobs)
+    return args, jobs
 
 
 # The config options as typed -> where user_config_arguments keeps them.

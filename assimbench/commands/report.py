@@ -15,7 +15,7 @@ import sys
 
 import numpy as np
 
-from assimbench.io.atomic import write_text
+from assimbench.io.atomic import unwritable, write_text
 from assimbench.report import figures
 from assimbench.report.collect import collect, experiment_differences, varied_settings
 from assimbench.report.tables import (
@@ -132,6 +132,10 @@ def main(argv=None) -> int:
     parser.add_argument("paths", nargs="+", help="result files (.h5) and folders to search for them")
     parser.add_argument("--out", default="report", help="folder for the tables and figures (default: report)")
     args = parser.parse_args(argv)
+    problem = unwritable(args.out)  # before anything is read or made: a refusal leaves nothing behind
+    if problem:
+        print(f"assimbench-report: error: {problem}; choose another --out", file=sys.stderr)
+        return EXIT_BAD_INPUT
     try:
         written, problems, best, pairs = build_report(args.paths, args.out)
     except ValueError as err:

@@ -30,7 +30,7 @@ from omegaconf import DictConfig
 from tqdm import tqdm
 
 from assimbench.api import run_experiment
-from assimbench.commands._hydra import compose_jobs, fail, informational, run_command
+from assimbench.commands._hydra import fail, informational, preflight_jobs, run_command
 from assimbench.config.checks import ConfigError
 from assimbench.config.composition import config_dir
 from assimbench.config.plan import resolve
@@ -53,10 +53,10 @@ def finished_hashes(folder: str) -> set:
 
 
 def preflight(argv: list[str]) -> None:
-    """Compose and check every job of ``argv``; raise ConfigError on the first bad one (nothing to
-    check for a call that only prints). For a multirun, say how many jobs already have a complete
+    """Compose and check every job of ``argv`` and its folders; raise ConfigError on the first bad
+    one (nothing to check for a call that only prints). For a multirun, say how many jobs already have a complete
     result (they are skipped)."""
-    args, jobs = compose_jobs(argv, with_hydra=True)
+    args, jobs = preflight_jobs(argv)
     if informational(args):
         return
     if args.multirun:

@@ -328,3 +328,79 @@ def test_the_lyapunov_command_runs_a_users_file(tmp_path):
     bad = subprocess.run(command + ["--config-path", "studies", "--config-name", "short", "time=-1"], cwd=tmp_path,
                          capture_output=True, text=True, timeout=300)
     assert bad.returncode == 2 and bad.stderr.strip().count("\n") == 0 and "time" in bad.stderr, bad.stderr
+
+
+needs_permissions = pytest.mark.skipif(os.geteuid() == 0, reason="root writes into read-only folders")
+
+
+def _read_only_folder(tmp_path):
+    folder = tmp_path / "ro"
+    folder.mkdir()
+    folder.chmod(0o500)
+    return folder
+
+
+def _file(tmp_path):
+    path = tmp_path / "afile"
+    path.write_text("not a folder")
+    return path
+
+
+# (arguments given the tmp folder, the read-only folder and a plain file; words of the one line)
+FOLDER_FAULTS = [
+    (lambda t, ro, f: [f"output={ro}/r.h5"], lambda t, ro, f: [f"cannot write to {ro} (read-only", "output"], True),
+    (lambda t, ro, f: [f"output={ro}/missing/r.h5"], lambda t, ro, f: [f"{ro}/missing", f"{ro} is a read-only",
+                                                                       "output"], True),
+    (lambda t, ro, f: [f"hydra.run.dir={ro}/run"], lambda t, ro, f: [f"{ro}/run", "read-only", "hydra.run.dir"], True),
+    (lambda t, ro, f: ["-m", "filter.members=5,6", f"hydra.sweep.dir={ro}/sweep"],
+     lambda t, ro, f: [f"{ro}/sweep", "read-only", "hydra.sweep.dir"], True),
+    (lambda t, ro, f: [f"output={f}/r.h5"], lambda t, ro, f: [f"{f} is not a folder", "output"], False),
+    (lambda t, ro, f: [f"output={t}"], lambda t, ro, f: [f"output={t}", "is a folder"], False),
+    (lambda t, ro, f: [f"hydra.run.dir={f}/run"], lambda t, ro, f: [f"{f} is not a folder", "hydra.run.dir"], False),
+    (lambda t, ro, f: ["-m", "filter.members=5,6", f"hydra.sweep.dir={f}"],
+     lambda t, ro, f: [f"{f} is not a folder", "hydra.sweep.dir"], False),
+]
+
+
+@pytest.mark.parametrize("args, words, read_only", FOLDER_FAULTS,
+                         ids=["output read-only", "output parent under read-only", "run dir read-only",
+                              "sweep dir read-only", "output under a file", "output is a folder",
+                              "run dir under a file", "sweep dir is a file"])
+def test_an_unwritable_folder_is_one_line_exit_two_and_nothing_left_behind(args, words, read_only, tmp_path,
+                                                                           monkeypatch, capsys):
+    if read_only and os.geteuid() == 0:
+        pytest.skip("root writes into read-only folders")
+    ro, afile = _read_only_folder(tmp_path), _file(tmp_path)
+    monkeypatch.chdir(tmp_path)
+    status = cli.main(args(tmp_path, ro, afile) + SMALL)
+    captured = capsys.readouterr()
+    lines = captured.err.strip().splitlines()
+    assert status == 2 and len(lines) == 1 and lines[0].startswith("assimbench: error: "), captured.err
+    for word in words(tmp_path, ro, afile):
+        assert word in lines[0], (word, lines[0])
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["afile", "ro"]  # no runs/<date>/.hydra, no log
+    assert list(ro.iterdir()) == []
+
+
+@pytest.mark.parametrize("read_only", [pytest.param(True, marks=needs_permissions), False])
+def test_the_lyapunov_command_refuses_an_unwritable_output_folder(read_only, tmp_path, monkeypatch, capsys):
+    from assimbench.commands import lyapunov
+    folder = _read_only_folder(tmp_path) if read_only else _file(tmp_path)
+    monkeypatch.chdir(tmp_path)
+    status = lyapunov.main(["model=lorenz63", f"output={folder}/l63.h5"])
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert status == 2 and len(lines) == 1 and str(folder) in lines[0] and "output" in lines[0], lines
+    assert [p.name for p in tmp_path.iterdir()] == [folder.name]
+
+
+@pytest.mark.parametrize("read_only", [pytest.param(True, marks=needs_permissions), False])
+def test_the_report_refuses_an_unwritable_out_folder(read_only, tmp_path, monkeypatch, capsys):
+    from assimbench.commands import report
+    folder = _read_only_folder(tmp_path) if read_only else _file(tmp_path)
+    monkeypatch.chdir(tmp_path)
+    status = report.main([str(tmp_path), "--out", str(folder / "report")])
+    captured = capsys.readouterr()
+    lines = captured.err.strip().splitlines()
+    assert status == 2 and len(lines) == 1, captured.err
+    assert lines[0].startswith("assimbench-report: error: ") and str(folder) in lines[0] and "--out" in lines[0]
+    assert [p.name for p in tmp_path.iterdir()] == [folder.name] and captured.out == ""
