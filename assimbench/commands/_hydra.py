@@ -21,6 +21,7 @@ import contextlib
 import hashlib
 import itertools
 import os
+import re
 import sys
 
 import yaml
@@ -239,13 +240,52 @@ def _with_override(argv: list[str], override: str) -> list[str]:
     return argv[:at] + [override] + argv[at:]
 
 
-def job_folder(override_dirname: str) -> str:
-    """A job's folder inside a sweep: its overrides, shortened with a hash when too long for a path."""
-    name = override_dirname or "defaults"
-    if len(name) <= MAX_FOLDER_NAME:
+# A job's folder name: its overrides sorted, each as key-value, joined by "__"; a list's items
+# joined by "_" (lanes.filter.inflation=[1.0,1.02] -> lanes.filter.inflation-1.0_1.02). Only
+# [A-Za-z0-9._+-] appear, so a name needs no quoting in a shell or a file system.
+PAIR_SEPARATOR = "__"
+KEY_SEPARATOR = "-"
+ITEM_SEPARATOR = "_"
+UNSAFE = re.compile(r"[^A-Za-z0-9._+-]")
+# Overrides that read back from their folder name without doubt; any other (quotes, spaces, nested
+# lists, ...) loses characters in the name, so a hash of the overrides is added to keep it unique.
+PLAIN_KEY = re.compile(r"\+?[A-Za-z0-9.]+(?:_[A-Za-z0-9.]+)*")
+PLAIN_VALUE = re.compile(r"[A-Za-z0-9.+-]+(?:_[A-Za-z0-9.+-]+)*|\[(?:[A-Za-z0-9.+-]+(?:,[A-Za-z0-9.+-]+)*)?\]")
+HASH_LENGTH = 12
+
+
+def _folder_pair(override: str) -> tuple:
+    """(``override`` as key-value with only safe characters, whether that spelling is exact)."""
+    key, equals, value = override.partition("=")
+    exact = bool(equals) and bool(PLAIN_KEY.fullmatch(key)) and bool(PLAIN_VALUE.fullmatch(value))
+    if value.startswith("[") and value.endswith("]"):
+        value = ITEM_SEPARATOR.join(item.strip() for item in value[1:-1].split(","))
+    pair = UNSAFE.sub("_", key) + (KEY_SEPARATOR + UNSAFE.sub("_", value.strip("'\"")) if equals else "")
+    return pair, exact
+
+
+def job_folder(overrides, exclude_keys=()) -> str:
+    """A job's folder inside a sweep, named by its own overrides (Hydra's ``hydra.overrides.task``,
+    without ``exclude_keys``): readable, safe characters only, the same for the same overrides.
+
+    When the name would pass MAX_FOLDER_NAME it is cut after a whole key-value pair, and when it is
+    cut or some characters could not be kept, a hash of the full overrides ends it
+    (``...__hash-<12 hex>``), so different overrides never share a folder."""
+    excluded = set(exclude_keys or ())
+    kept = sorted(str(o) for o in overrides or () if str(o).partition("=")[0].lstrip("+~") not in excluded)
+    if not kept:
+        return "defaults"
+    pairs, exact = zip(*(_folder_pair(o) for o in kept))
+    name = PAIR_SEPARATOR.join(pairs)
+    if all(exact) and len(name) <= MAX_FOLDER_NAME:
         return name
-    digest = hashlib.sha256(name.encode()).hexdigest()[:12]
-    return f"{name[:MAX_FOLDER_NAME - 13]}-{digest}"
+    suffix = f"hash{KEY_SEPARATOR}{hashlib.sha256(chr(10).join(kept).encode()).hexdigest()[:HASH_LENGTH]}"
+    head = []
+    for pair in pairs:
+        if len(PAIR_SEPARATOR.join(head + [pair, suffix])) > MAX_FOLDER_NAME:
+            break
+        head.append(pair)
+    return PAIR_SEPARATOR.join(head + [suffix])
 
 
 def prepare_hydra() -> None:

@@ -1,6 +1,7 @@
 """The command line: the demo end to end, a multirun, and bad input refused in one line."""
 
 import os
+import re
 import subprocess
 import sys
 
@@ -8,6 +9,7 @@ import h5py
 import pytest
 
 from assimbench.commands import run as cli
+from assimbench.commands._hydra import MAX_FOLDER_NAME, job_folder, prepare_hydra, preflight_jobs
 from assimbench.config.catalogue import catalogue
 
 SMALL = ["cycles=30", "burn_in=5", "model.size=10", "filter.members=6"]
@@ -161,7 +163,8 @@ def test_a_multirun_writes_one_file_per_job_and_a_rerun_resumes(tmp_path):
     files = sorted((tmp_path / "sweeps" / "study").glob("*/result.h5"))
     assert len(files) == 4
     assert {_members_of(p) for p in files} == {"5", "7"}
-    assert "filter.inflation=1.02,filter.members=5" in str(files[0])  # a job's folder names its overrides
+    assert files[0].parent.name == ("burn_in-5__cycles-30__filter.inflation-1.02__filter.members-5__"
+                                    "model.size-10")  # a job's folder names its overrides
     missing, incomplete, kept = files[0], files[1], files[2:]
     missing.unlink()
     with h5py.File(incomplete, "r+") as f:
@@ -404,3 +407,42 @@ def test_the_report_refuses_an_unwritable_out_folder(read_only, tmp_path, monkey
     assert status == 2 and len(lines) == 1, captured.err
     assert lines[0].startswith("assimbench-report: error: ") and str(folder) in lines[0] and "--out" in lines[0]
     assert [p.name for p in tmp_path.iterdir()] == [folder.name] and captured.out == ""
+
+
+def _long_overrides(last: str) -> list:
+    return [f"lanes.filter.inflation=[{','.join(f'{1 + i / 100:.2f}' for i in range(20))}]",
+            "lanes.filter.rtps=[0.0,0.1,0.2,0.3,0.4,0.5,0.6]", "observation.error_std=0.5", "filter.members=12",
+            f"seed={last}"]
+
+
+def test_job_folder_names_are_safe_unique_and_cut_between_whole_pairs():
+    names = {job_folder(_long_overrides(str(seed))) for seed in range(50)}
+    assert len(names) == 50  # the overrides differ only after the cut: the hash keeps them apart
+    for seed in range(50):
+        name = job_folder(_long_overrides(str(seed)))
+        assert len(name) <= MAX_FOLDER_NAME and re.fullmatch(r"[A-Za-z0-9._+-]+", name), name
+        pairs = name.split("__")
+        assert pairs[-1].startswith("hash-")
+        whole = {job_folder([o]) for o in _long_overrides(str(seed))}  # every pair spelled alone
+        assert set(pairs[:-1]) <= whole, (pairs, whole)  # no value cut in the middle
+    assert job_folder(list(reversed(_long_overrides("1")))) == job_folder(_long_overrides("1"))
+
+
+def test_job_folder_names_spell_lists_readably_and_hash_what_they_cannot_spell():
+    assert job_folder(["filter.members=5", "lanes.filter.inflation=[1.0,1.02]", "output=x.h5"], ["output"]) == \
+        "filter.members-5__lanes.filter.inflation-1.0_1.02"
+    assert job_folder([]) == "defaults"
+    spaced, joined = job_folder(["observation.transform='a b'"]), job_folder(["observation.transform=a_b"])
+    assert joined == "observation.transform-a_b" and spaced.startswith("observation.transform-a_b__hash-")
+    assert not set("[],='\" ") & set(spaced + joined)
+
+
+def test_a_sweep_job_folder_is_named_as_hydra_will_name_it(tmp_path, monkeypatch):
+    """The pre-flight's folder of each job (resume, writability) is the one Hydra makes."""
+    monkeypatch.chdir(tmp_path)
+    prepare_hydra()
+    _, jobs = preflight_jobs(["-m", "filter.members=5,6", "lanes.filter.inflation=[1.0,1.02]", "output=r.h5",
+                              "hydra.sweep.dir=sweeps/s"])
+    assert [str(h.sweep.subdir) for _, h in jobs] == [
+        "filter.members-5__lanes.filter.inflation-1.0_1.02", "filter.members-6__lanes.filter.inflation-1.0_1.02"]
+    assert list(tmp_path.iterdir()) == []
