@@ -4,6 +4,8 @@ A Hydra app over the same ``model`` options (primary config
 ``configs/lyapunov.yaml``), e.g. ``assimbench-lyapunov model=lorenz63 time=2000
 output=l63.h5``. Writes the spectrum file (:mod:`assimbench.io.spectrum`)
 and prints a short table. Bad input: one line, exit status 2, nothing written.
+A user's own file runs as for ``assimbench`` (``--config-path DIR
+--config-name NAME``), starting from ``defaults: [lyapunov, _self_]``.
 """
 
 import os
@@ -15,7 +17,7 @@ import numpy as np
 from hydra.core.hydra_config import HydraConfig
 from omegaconf import DictConfig
 
-from assimbench.commands._hydra import compose_jobs, run_command
+from assimbench.commands._hydra import preflight_jobs, run_command
 from assimbench.compile_cache import switch_on as switch_on_compile_cache
 from assimbench.config.catalogue import catalogue
 from assimbench.config.composition import config_dir
@@ -62,7 +64,7 @@ def _app(cfg: DictConfig) -> None:
 
 def main(argv=None) -> int:
     """Entry point of the ``assimbench-lyapunov`` console script."""
-    return run_command(COMMAND, argv, _app, lambda args: compose_jobs(args, config_name="lyapunov"))
+    return run_command(COMMAND, argv, _app, lambda args: preflight_jobs(args, config_name="lyapunov"), base="lyapunov")
 
 
 if __name__ == "__main__":

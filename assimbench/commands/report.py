@@ -19,7 +19,7 @@ import sys
 
 import numpy as np
 
-from assimbench.io.atomic import write_text
+from assimbench.io.atomic import unwritable, write_text
 from assimbench.report import figures
 from assimbench.report.collect import collect, experiment_differences
 from assimbench.report.decide import comparisons, decide, setting_text
@@ -241,6 +241,10 @@ def main(argv=None) -> int:
     level.add_argument("--fail-rmse", type=_level, default=None, metavar="X",
                        help="a replicate is lost when its time-mean analysis RMSE is above X (state units)")
     args = parser.parse_args(argv)
+    problem = unwritable(args.out)  # before anything is read or made: a refusal leaves nothing behind
+    if problem:
+        print(f"assimbench-report: error: {problem}; choose another --out", file=sys.stderr)
+        return EXIT_BAD_INPUT
     try:
         written, problems, points, compared = build_report(args.paths, args.out,
                                                            FailingLevel(args.fail_ratio, args.fail_rmse))

@@ -4,6 +4,10 @@ Before Hydra starts, every job of the command (every point of a ``-m`` sweep)
 is composed and validated, so a bad value stops the whole command with one
 line on stderr and exit status 2, before anything is written.
 
+A user's own experiment file: ``assimbench --config-path DIR --config-name
+NAME [overrides]`` composes DIR/NAME.yaml on top of the package's config
+(``_hydra.user_config_arguments``).
+
 Re-run: ``assimbench --from FILE [overrides]`` runs the experiment stored in
 a result file again (its stored resolved config, then the overrides).
 
@@ -22,11 +26,11 @@ import sys
 import hydra
 import numpy as np
 from hydra.core.hydra_config import HydraConfig
-from omegaconf import DictConfig, OmegaConf
+from omegaconf import DictConfig
 from tqdm import tqdm
 
 from assimbench.api import run_experiment
-from assimbench.commands._hydra import compose_jobs, fail, informational, run_command
+from assimbench.commands._hydra import fail, informational, preflight_jobs, run_command
 from assimbench.config.checks import ConfigError
 from assimbench.config.composition import config_dir
 from assimbench.config.plan import resolve
@@ -35,14 +39,6 @@ from assimbench.io.results import ResultFileError, read_result, stored_config_ha
 from assimbench.report.words import setting_word, value_text
 
 COMMAND = "assimbench"
-
-
-def _sweep_dir(overrides: list[str]) -> str:
-    for override in overrides:
-        key, _, value = override.partition("=")
-        if key.lstrip("+") == "hydra.sweep.dir":
-            return value
-    return str(OmegaConf.load(os.path.join(config_dir(), "config.yaml")).hydra.sweep.dir)
 
 
 def finished_hashes(folder: str) -> set:
@@ -58,16 +54,16 @@ def finished_hashes(folder: str) -> set:
 
 
 def preflight(argv: list[str]) -> None:
-    """Compose and check every job of ``argv``; raise ConfigError on the first bad one (nothing to
-    check for a call that only prints). For a multirun, say how many jobs already have a complete
+    """Compose and check every job of ``argv`` and its folders; raise ConfigError on the first bad
+    one (nothing to check for a call that only prints). For a multirun, say how many jobs already have a complete
     result (they are skipped)."""
-    args, jobs = compose_jobs(argv)
+    args, jobs = preflight_jobs(argv)
     if informational(args):
         return
     if args.multirun:
-        folder = _sweep_dir(list(args.overrides))
+        folder = str(jobs[0][1].sweep.dir)
         done = finished_hashes(folder) if os.path.isdir(folder) and "${" not in folder else set()
-        skipped = sum(config_hash(cfg) in done for cfg in jobs)
+        skipped = sum(config_hash(cfg) in done for cfg, _ in jobs)
         if skipped:
             print(f"assimbench: resuming {folder}: {skipped} of {len(jobs)} jobs already have a complete "
                   "result with the same config and are skipped", file=sys.stderr, flush=True)

@@ -7,9 +7,17 @@ under their names (their schemas hold the only defaults); ``configs/`` holds
 the experiment's and the Lyapunov command's choices and Hydra's folders, and
 the observation presets. Hydra's and OmegaConf's composition errors come back
 as a :class:`~assimbench.config.checks.ConfigError` with one line naming the
-override and what is allowed (with a "did you mean" for a mistyped key).
+override (or the key of a user's file) and what is allowed (with a "did you
+mean" for a mistyped key).
+
+A user's own experiment file is composed the way the command line hands it to
+Hydra: its folder is the primary folder (``config_path``), its name the
+``config_name``, and the package's ``configs/`` stays on the search path
+through a ``hydra.searchpath`` override, so the file can start from the
+package's config (``defaults: [config, _self_]``) and its group choices.
 """
 
+import copy
 import dataclasses
 import difflib
 import re
@@ -20,7 +28,7 @@ from hydra import compose, initialize_config_dir
 from hydra.core.config_store import ConfigStore
 from hydra.core.global_hydra import GlobalHydra
 from hydra.errors import HydraException
-from omegaconf import DictConfig, OmegaConf
+from omegaconf import DictConfig, OmegaConf, open_dict
 from omegaconf.errors import OmegaConfBaseException
 
 from assimbench.config.catalogue import catalogue
@@ -93,12 +101,28 @@ def _all_keys(cfg: DictConfig, prefix: str = "") -> list[str]:
     return keys
 
 
-def _compose(overrides, config_name: str = "config") -> DictConfig:
+def _compose(overrides, config_name: str = "config", config_path=None) -> DictConfig:
+    """The composed config, Hydra's node included (``hydra``), from ``config_name`` in
+    ``config_path`` (default: the package's configs)."""
     register_schemas()
     if GlobalHydra.instance().is_initialized():
         GlobalHydra.instance().clear()
-    with initialize_config_dir(config_dir=config_dir(), version_base="1.3", job_name="assimbench"):
-        return compose(config_name=config_name, overrides=list(overrides))
+    with initialize_config_dir(config_dir=config_path or config_dir(), version_base="1.3", job_name="assimbench"):
+        return compose(config_name=config_name, overrides=list(overrides), return_hydra_config=True)
+
+
+def _source(overrides) -> list:
+    """The overrides that decide which keys exist: group choices and the search path."""
+    return [o for o in overrides if _split(o)[0] in GROUPS or _split(o)[0] == "hydra.searchpath"]
+
+
+def _reference(overrides, config_name: str, config_path, base) -> DictConfig:
+    """The config whose keys a bad key is compared with: the job's own without its other values,
+    or, when the fault is in the user's file itself, the package's ``base`` with the group choices."""
+    try:
+        return _compose(_source(overrides), config_name, config_path)
+    except (HydraException, OmegaConfBaseException):
+        return _compose([o for o in overrides if _split(o)[0] in GROUPS], base or "config")
 
 
 def _options_with(key: str) -> list:
@@ -111,28 +135,34 @@ def _options_with(key: str) -> list:
 
 
 def _first_line(err: BaseException) -> str:
-    text = str(err).strip().splitlines()
-    return text[0].strip() if text else err.__class__.__name__
+    text = [ln.strip() for ln in str(err).strip().splitlines()]
+    # An error in a config file is headed "In 'name': SomeError raised while composing config:";
+    # the reason is the line after it.
+    if len(text) > 1 and text[0].startswith("In '") and text[0].endswith(":"):
+        return text[1]
+    return text[0] if text else err.__class__.__name__
 
 
-def _translate(err: BaseException, overrides) -> ConfigError:
+def _translate(err: BaseException, overrides, config_name: str = "config", config_path=None,
+               base=None) -> ConfigError:
     message = str(err)
+    in_file = re.search(r"full_key: (\S+)", message) if message.startswith("In '") else None
     unknown = re.search(r"Could not override '([^']+)'", message) or re.search(
         r"Key '([^']+)' (?:is )?not in", message
     )
     if unknown:
-        key = unknown.group(1)
-        group_choices = [o for o in overrides if _split(o)[0] in GROUPS]
-        known = _all_keys(_compose(group_choices))
+        key = in_file.group(1) if in_file else unknown.group(1)
+        composed = _reference(overrides, config_name, config_path, base)
+        known = [k for k in _all_keys(composed) if not k.startswith("hydra.")]
         if key.startswith("lanes."):
             given = next((_split(o)[1] for o in overrides if _split(o)[0] == key), "")
             return _lane_key_error(key[len("lanes."):], known, given.strip("[]") or "a,b")
-        if "." not in key and not message.startswith("Could not override"):
+        if "." not in key and not in_file and not message.startswith("Could not override"):
             parent = next((_split(o)[0] for o in overrides if _split(o)[0].endswith("." + key)), key)
             key = parent
         owners = _options_with(key)
         if owners:
-            chosen = _compose(group_choices)[key.partition(".")[0]].name
+            chosen = composed[key.partition(".")[0]].name
             section = key.partition(".")[0]
             return ConfigError(f"{key} is not a key of {section} {chosen}; it is a key of {section}="
                                + "|".join(owners))
@@ -145,7 +175,7 @@ def _translate(err: BaseException, overrides) -> ConfigError:
         return ConfigError(f"{arg.group(1) if arg else 'override'}: a list of values is a sweep; add --multirun (-m)")
     cause = err.__cause__ if err.__cause__ is not None else err
     failing = re.search(r"override (\S+)", message)
-    where = failing.group(1) if failing else "configuration"
+    where = failing.group(1) if failing else in_file.group(1) if in_file else "configuration"
     return ConfigError(f"{where} is not allowed: {_first_line(cause)}")
 
 
@@ -162,6 +192,35 @@ def _lane_key_error(key: str, known: list, values: str) -> ConfigError:
     return ConfigError(f"lanes.{key} is not a lane key{hint}")
 
 
+def compose_job(overrides=(), validate: bool = True, config_name: str = "config", config_path=None,
+                base=None) -> tuple:
+    """(config, Hydra's node) of one job, composed as Hydra composes it: ``config_name`` from
+    ``config_path`` (default: the package's configs) with Hydra-style ``overrides``
+    (e.g. "filter.members=10"; ``hydra.*`` overrides shape Hydra's node).
+
+    ``base`` is the package config the job is checked as (``config`` or ``lyapunov``; default
+    ``config_name``). The config is the typed DictConfig without the ``hydra`` node, as the
+    command's job receives it; with ``validate`` every node is checked through its spec too.
+    Raises ConfigError with a one-line message.
+    """
+    overrides = list(overrides)
+    _check_group_choices(overrides)
+    try:
+        full = _compose(overrides, config_name, config_path)
+        cfg = copy.deepcopy(full)  # Hydra's node stays in ``full``, where its interpolations resolve
+        with open_dict(cfg):
+            del cfg["hydra"]
+        OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
+    except (HydraException, OmegaConfBaseException) as err:
+        raise _translate(err, overrides, config_name, config_path, base) from None
+    if validate:
+        if (base or config_name) == "lyapunov":
+            check_lyapunov(cfg)
+        else:
+            check(cfg)
+    return cfg, full.hydra
+
+
 def compose_config(overrides=(), validate: bool = True, config_name: str = "config") -> DictConfig:
     """Compose ``configs/config.yaml`` (or ``configs/<config_name>.yaml``) with Hydra-style
     ``overrides`` (e.g. "filter.members=10").
@@ -169,19 +228,7 @@ def compose_config(overrides=(), validate: bool = True, config_name: str = "conf
     Returns the typed DictConfig; with ``validate`` every node is checked
     through its spec too. Raises ConfigError with a one-line message.
     """
-    overrides = list(overrides)
-    _check_group_choices(overrides)
-    try:
-        cfg = _compose(overrides, config_name)
-        OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
-    except (HydraException, OmegaConfBaseException) as err:
-        raise _translate(err, overrides) from None
-    if validate:
-        if config_name == "config":
-            check(cfg)
-        else:
-            check_lyapunov(cfg)
-    return cfg
+    return compose_job(overrides, validate, config_name)[0]
 
 
-__all__ = ["GROUPS", "SCHEMA_PREFIX", "compose_config", "config_dir", "group_options", "register_schemas"]
+__all__ = ["GROUPS", "SCHEMA_PREFIX", "compose_config", "compose_job", "config_dir", "group_options", "register_schemas"]

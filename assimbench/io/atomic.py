@@ -24,6 +24,24 @@ def prepare(path: str) -> str:
     return path
 
 
+def unwritable(folder: str):
+    """Why files cannot be written in ``folder`` once it and its missing parents are made (one
+    line), or None when they can. Asked before a command creates anything, so that a refusal
+    leaves nothing behind."""
+    path = os.path.abspath(folder)
+    existing = path
+    while not os.path.lexists(existing):
+        existing = os.path.dirname(existing)
+    if not os.path.isdir(existing):
+        return f"cannot write to {path}: {existing} is not a folder"
+    # W for new entries, X to reach them; access() also answers "no" on a read-only file system.
+    if not os.access(existing, os.W_OK | os.X_OK):
+        if existing == path:
+            return f"cannot write to {path} (read-only folder)"
+        return f"cannot create {path}: {existing} is a read-only folder"
+    return None
+
+
 def publish(path: str) -> str:
     """Move the complete temporary file of ``path`` to its final name; returns ``path``."""
     os.replace(partial_path(path), path)

@@ -1,6 +1,7 @@
 """The command line: the demo end to end, a multirun, and bad input refused in one line."""
 
 import os
+import re
 import subprocess
 import sys
 
@@ -8,6 +9,7 @@ import h5py
 import pytest
 
 from assimbench.commands import run as cli
+from assimbench.commands._hydra import MAX_FOLDER_NAME, job_folder, preflight_jobs, prepare_hydra
 from assimbench.config.catalogue import catalogue
 
 SMALL = ["cycles=30", "burn_in=5", "model.size=10", "filter.members=6"]
@@ -166,7 +168,8 @@ def test_a_multirun_writes_one_file_per_job_and_a_rerun_resumes(tmp_path):
     files = sorted((tmp_path / "sweeps" / "study").glob("*/result.h5"))
     assert len(files) == 4
     assert {_members_of(p) for p in files} == {"5", "7"}
-    assert "filter.inflation=1.02,filter.members=5" in str(files[0])  # a job's folder names its overrides
+    assert files[0].parent.name == ("burn_in-5__cycles-30__filter.inflation-1.02__filter.members-5__"
+                                    "model.size-10")  # a job's folder names its overrides
     missing, incomplete, kept = files[0], files[1], files[2:]
     missing.unlink()
     with h5py.File(incomplete, "r+") as f:
@@ -235,3 +238,227 @@ def test_the_printed_summary_places_the_analysis_error_against_its_reference_lev
     lines = reference_lines({"rmse_analysis": rmse}, config, 3.6)
     assert lines[0].split(None, 1)[1] == "observation error 1.0000, climatology 3.6000 (RMSE of the climatological mean)"
     assert lines[1].endswith(f"{rmse:.2f} x the observation error, {rmse / 3.6:.2f} x climatology: {verdict}")
+
+
+RING_STUDY = """\
+defaults:
+  - config
+  - override model: lorenz63
+  - _self_
+filter:
+  members: 6
+cycles: 20
+burn_in: 5
+"""
+
+
+def _study(tmp_path, text, name="ring"):
+    folder = tmp_path / "studies"
+    folder.mkdir(exist_ok=True)
+    (folder / f"{name}.yaml").write_text(text)
+    return folder
+
+
+def test_a_users_config_file_runs_end_to_end_and_its_rerun_is_found_complete(tmp_path):
+    """A relative --config-path is taken from the current folder; the file starts from the package's
+    config and picks a group; the pre-flight composes the same config as the job (same config_hash)."""
+    _study(tmp_path, RING_STUDY)
+    command = ["-m", "--config-path", "studies", "--config-name", "ring", "seed=3", "hydra.sweep.dir=sweeps/ring"]
+    done = _run(command, tmp_path)
+    assert done.returncode == 0, done.stderr
+    files = list((tmp_path / "sweeps" / "ring").glob("*/result.h5"))
+    assert len(files) == 1
+    with h5py.File(files[0], "r") as f:
+        assert f.attrs["complete"]
+        assert f["rmse_analysis"].shape == (1, 20)
+        config = f.attrs["config"]
+    assert "name: lorenz63" in config and "members: 6" in config and "seed: 3" in config
+    again = _run(command, tmp_path)
+    assert again.returncode == 0, again.stderr
+    assert "1 of 1 jobs already have a complete result" in again.stderr  # the pre-flight's hash
+    assert again.stdout.count("skipped:") == 1  # the job's hash: the same config
+
+
+USER_FILE_FAULTS = [
+    ("defaults: [config, _self_]\ncycles: abc\n", ["cycles", "Integer"]),
+    ("defaults: [config, _self_]\nfilter:\n  members: 1\n", ["filter.members=1", ">= 2"]),
+    ("defaults: [config, _self_]\nfilter:\n  membres: 3\n", ["filter.membres", "did you mean filter.members"]),
+    ("defaults: [config, _self_]\ncylces: 3\n", ["cylces", "did you mean cycles"]),
+    ("defaults:\n  - config\n  - override filter: kalman\n  - _self_\n", ["kalman"]),
+    ("cycles: 20\n", ["ring.yaml", "defaults: [config, _self_]"]),
+    ("defaults: [_self_, config]\ncycles: 20\n", ["ring.yaml", "defaults: [config, _self_]"]),
+    ("defaults: [config\n", ["ring.yaml", "not valid YAML"]),
+]
+
+
+@pytest.mark.parametrize("text, words", USER_FILE_FAULTS, ids=[t.splitlines()[-1] for t, _ in USER_FILE_FAULTS])
+def test_a_bad_value_in_a_users_file_is_one_line_naming_the_key(text, words, tmp_path, monkeypatch, capsys):
+    _study(tmp_path, text)
+    monkeypatch.chdir(tmp_path)
+    status = cli.main(["--config-path", "studies", "--config-name", "ring"])
+    captured = capsys.readouterr()
+    assert status == 2
+    lines = captured.err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("assimbench: error: "), captured.err
+    for word in words:
+        assert word in lines[0], (word, lines[0])
+    assert [p.name for p in tmp_path.iterdir()] == ["studies"]  # nothing written
+
+
+@pytest.mark.parametrize("args, words", [
+    (["--config-path", "studies", "--config-name", "missing"], ["missing.yaml", "studies"]),
+    (["--config-path", "nowhere", "--config-name", "ring"], ["--config-path nowhere", "no such folder"]),
+    (["--config-path", "studies"], ["--config-name NAME", "NAME.yaml"]),
+    (["--config-path", "studies", "--config-name", "config"], ["config.yaml", "package's own"]),
+    (["--config-name", "ring"], ["folder of ring.yaml", "--config-path"]),
+    (["--config-path", "studies", "--config-name", "ring", "hydra.searchpath=[x]"], ["set by the command", "--config-dir"]),
+])
+def test_a_missing_users_file_or_folder_is_one_line(args, words, tmp_path, monkeypatch, capsys):
+    _study(tmp_path, RING_STUDY)
+    monkeypatch.chdir(tmp_path)
+    status = cli.main(args)
+    captured = capsys.readouterr()
+    lines = captured.err.strip().splitlines()
+    assert status == 2 and len(lines) == 1 and lines[0].startswith("assimbench: error: "), captured.err
+    for word in words:
+        assert word in lines[0], (word, lines[0])
+    assert [p.name for p in tmp_path.iterdir()] == ["studies"]
+
+
+def test_a_users_file_found_through_config_dir_can_be_overridden(tmp_path, monkeypatch, capsys):
+    """--config-dir: the file is looked for there too; command-line overrides come after the file."""
+    _study(tmp_path, RING_STUDY)
+    monkeypatch.chdir(tmp_path)
+    status = cli.main(["--config-dir", "studies", "--config-name", "ring", "--cfg", "job", "filter.members=7"])
+    out = capsys.readouterr().out
+    assert status == 0
+    assert "name: lorenz63" in out and "members: 7" in out and "cycles: 20" in out
+
+
+def test_the_lyapunov_command_runs_a_users_file(tmp_path):
+    _study(tmp_path, "defaults:\n  - lyapunov\n  - override model: lorenz63\n  - _self_\ntime: 5\nblocks: 10\noutput: l63.h5\n",
+           name="short")
+    script = os.path.join(os.path.dirname(sys.executable), "assimbench-lyapunov")
+    command = [script] if os.path.exists(script) else [sys.executable, "-m", "assimbench.commands.lyapunov"]
+    done = subprocess.run(command + ["--config-path", "studies", "--config-name", "short"], cwd=tmp_path,
+                          capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert "lorenz63 (n=3), 3 exponents averaged over 5 model time units" in done.stdout
+    bad = subprocess.run(command + ["--config-path", "studies", "--config-name", "short", "time=-1"], cwd=tmp_path,
+                         capture_output=True, text=True, timeout=300)
+    assert bad.returncode == 2 and bad.stderr.strip().count("\n") == 0 and "time" in bad.stderr, bad.stderr
+
+
+needs_permissions = pytest.mark.skipif(os.geteuid() == 0, reason="root writes into read-only folders")
+
+
+def _read_only_folder(tmp_path):
+    folder = tmp_path / "ro"
+    folder.mkdir()
+    folder.chmod(0o500)
+    return folder
+
+
+def _file(tmp_path):
+    path = tmp_path / "afile"
+    path.write_text("not a folder")
+    return path
+
+
+# (arguments given the tmp folder, the read-only folder and a plain file; words of the one line)
+FOLDER_FAULTS = [
+    (lambda t, ro, f: [f"output={ro}/r.h5"], lambda t, ro, f: [f"cannot write to {ro} (read-only", "output"], True),
+    (lambda t, ro, f: [f"output={ro}/missing/r.h5"], lambda t, ro, f: [f"{ro}/missing", f"{ro} is a read-only",
+                                                                       "output"], True),
+    (lambda t, ro, f: [f"hydra.run.dir={ro}/run"], lambda t, ro, f: [f"{ro}/run", "read-only", "hydra.run.dir"], True),
+    (lambda t, ro, f: ["-m", "filter.members=5,6", f"hydra.sweep.dir={ro}/sweep"],
+     lambda t, ro, f: [f"{ro}/sweep", "read-only", "hydra.sweep.dir"], True),
+    (lambda t, ro, f: [f"output={f}/r.h5"], lambda t, ro, f: [f"{f} is not a folder", "output"], False),
+    (lambda t, ro, f: [f"output={t}"], lambda t, ro, f: [f"output={t}", "is a folder"], False),
+    (lambda t, ro, f: [f"hydra.run.dir={f}/run"], lambda t, ro, f: [f"{f} is not a folder", "hydra.run.dir"], False),
+    (lambda t, ro, f: ["-m", "filter.members=5,6", f"hydra.sweep.dir={f}"],
+     lambda t, ro, f: [f"{f} is not a folder", "hydra.sweep.dir"], False),
+]
+
+
+@pytest.mark.parametrize("args, words, read_only", FOLDER_FAULTS,
+                         ids=["output read-only", "output parent under read-only", "run dir read-only",
+                              "sweep dir read-only", "output under a file", "output is a folder",
+                              "run dir under a file", "sweep dir is a file"])
+def test_an_unwritable_folder_is_one_line_exit_two_and_nothing_left_behind(args, words, read_only, tmp_path,
+                                                                           monkeypatch, capsys):
+    if read_only and os.geteuid() == 0:
+        pytest.skip("root writes into read-only folders")
+    ro, afile = _read_only_folder(tmp_path), _file(tmp_path)
+    monkeypatch.chdir(tmp_path)
+    status = cli.main(args(tmp_path, ro, afile) + SMALL)
+    captured = capsys.readouterr()
+    lines = captured.err.strip().splitlines()
+    assert status == 2 and len(lines) == 1 and lines[0].startswith("assimbench: error: "), captured.err
+    for word in words(tmp_path, ro, afile):
+        assert word in lines[0], (word, lines[0])
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["afile", "ro"]  # no runs/<date>/.hydra, no log
+    assert list(ro.iterdir()) == []
+
+
+@pytest.mark.parametrize("read_only", [pytest.param(True, marks=needs_permissions), False])
+def test_the_lyapunov_command_refuses_an_unwritable_output_folder(read_only, tmp_path, monkeypatch, capsys):
+    from assimbench.commands import lyapunov
+    folder = _read_only_folder(tmp_path) if read_only else _file(tmp_path)
+    monkeypatch.chdir(tmp_path)
+    status = lyapunov.main(["model=lorenz63", f"output={folder}/l63.h5"])
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert status == 2 and len(lines) == 1 and str(folder) in lines[0] and "output" in lines[0], lines
+    assert [p.name for p in tmp_path.iterdir()] == [folder.name]
+
+
+@pytest.mark.parametrize("read_only", [pytest.param(True, marks=needs_permissions), False])
+def test_the_report_refuses_an_unwritable_out_folder(read_only, tmp_path, monkeypatch, capsys):
+    from assimbench.commands import report
+    folder = _read_only_folder(tmp_path) if read_only else _file(tmp_path)
+    monkeypatch.chdir(tmp_path)
+    status = report.main([str(tmp_path), "--out", str(folder / "report")])
+    captured = capsys.readouterr()
+    lines = captured.err.strip().splitlines()
+    assert status == 2 and len(lines) == 1, captured.err
+    assert lines[0].startswith("assimbench-report: error: ") and str(folder) in lines[0] and "--out" in lines[0]
+    assert [p.name for p in tmp_path.iterdir()] == [folder.name] and captured.out == ""
+
+
+def _long_overrides(last: str) -> list:
+    return [f"lanes.filter.inflation=[{','.join(f'{1 + i / 100:.2f}' for i in range(20))}]",
+            "lanes.filter.rtps=[0.0,0.1,0.2,0.3,0.4,0.5,0.6]", "observation.error_std=0.5", "filter.members=12",
+            f"seed={last}"]
+
+
+def test_job_folder_names_are_safe_unique_and_cut_between_whole_pairs():
+    names = {job_folder(_long_overrides(str(seed))) for seed in range(50)}
+    assert len(names) == 50  # the overrides differ only after the cut: the hash keeps them apart
+    for seed in range(50):
+        name = job_folder(_long_overrides(str(seed)))
+        assert len(name) <= MAX_FOLDER_NAME and re.fullmatch(r"[A-Za-z0-9._+-]+", name), name
+        pairs = name.split("__")
+        assert pairs[-1].startswith("hash-")
+        whole = {job_folder([o]) for o in _long_overrides(str(seed))}  # every pair spelled alone
+        assert set(pairs[:-1]) <= whole, (pairs, whole)  # no value cut in the middle
+    assert job_folder(list(reversed(_long_overrides("1")))) == job_folder(_long_overrides("1"))
+
+
+def test_job_folder_names_spell_lists_readably_and_hash_what_they_cannot_spell():
+    assert job_folder(["filter.members=5", "lanes.filter.inflation=[1.0,1.02]", "output=x.h5"], ["output"]) == \
+        "filter.members-5__lanes.filter.inflation-1.0_1.02"
+    assert job_folder([]) == "defaults"
+    spaced, joined = job_folder(["observation.transform='a b'"]), job_folder(["observation.transform=a_b"])
+    assert joined == "observation.transform-a_b" and spaced.startswith("observation.transform-a_b__hash-")
+    assert not set("[],='\" ") & set(spaced + joined)
+
+
+def test_a_sweep_job_folder_is_named_as_hydra_will_name_it(tmp_path, monkeypatch):
+    """The pre-flight's folder of each job (resume, writability) is the one Hydra makes."""
+    monkeypatch.chdir(tmp_path)
+    prepare_hydra()
+    _, jobs = preflight_jobs(["-m", "filter.members=5,6", "lanes.filter.inflation=[1.0,1.02]", "output=r.h5",
+                              "hydra.sweep.dir=sweeps/s"])
+    assert [str(h.sweep.subdir) for _, h in jobs] == [
+        "filter.members-5__lanes.filter.inflation-1.0_1.02", "filter.members-6__lanes.filter.inflation-1.0_1.02"]
+    assert list(tmp_path.iterdir()) == []
