@@ -30,7 +30,7 @@ from omegaconf import DictConfig
 from tqdm import tqdm
 
 from assimbench.api import run_experiment
-from assimbench.commands._hydra import fail, informational, preflight_jobs, run_command
+from assimbench.commands._hydra import fail, informational, job_folder_of, preflight_jobs, run_command
 from assimbench.config.checks import ConfigError
 from assimbench.config.composition import config_dir
 from assimbench.config.plan import resolve
@@ -41,18 +41,6 @@ from assimbench.report.words import setting_word, value_text
 COMMAND = "assimbench"
 
 
-def finished_hashes(folder: str) -> set:
-    """Config hashes of the complete result files under ``folder`` (any depth)."""
-    hashes = set()
-    for root, _, files in os.walk(folder):
-        for name in files:
-            if name.endswith(".h5"):
-                digest = stored_config_hash(os.path.join(root, name))
-                if digest is not None:
-                    hashes.add(digest)
-    return hashes
-
-
 def preflight(argv: list[str]) -> None:
     """Compose and check every job of ``argv`` and its folders; raise ConfigError on the first bad
     one (nothing to check for a call that only prints). For a multirun, say how many jobs already have a complete
@@ -61,10 +49,16 @@ def preflight(argv: list[str]) -> None:
     if informational(args):
         return
     if args.multirun:
-        folder = str(jobs[0][1].sweep.dir)
-        done = finished_hashes(folder) if os.path.isdir(folder) and "${" not in folder else set()
-        skipped = sum(config_hash(cfg) in done for cfg, _ in jobs)
+        # Each job's own output file, where the job will look for it: a complete result elsewhere in
+        # the sweep (an older folder name) is not this job's and is not counted.
+        skipped = 0
+        for cfg, hydra_node in jobs:
+            if cfg.get("output") is None:
+                continue
+            path = os.path.join(job_folder_of(hydra_node, True), str(cfg.output))
+            skipped += os.path.isfile(path) and stored_config_hash(path) == config_hash(cfg)
         if skipped:
+            folder = str(jobs[0][1].sweep.dir)
             print(f"assimbench: resuming {folder}: {skipped} of {len(jobs)} jobs already have a complete "
                   "result with the same config and are skipped", file=sys.stderr, flush=True)
 

@@ -171,7 +171,11 @@ def test_a_multirun_writes_one_file_per_job_and_a_rerun_resumes(tmp_path):
     assert files[0].parent.name == ("burn_in-5__cycles-30__filter.inflation-1.02__filter.members-5__"
                                     "model.size-10")  # a job's folder names its overrides
     missing, incomplete, kept = files[0], files[1], files[2:]
-    missing.unlink()
+    # A complete result under another folder name (as an older naming scheme left it) is not the job's:
+    # the job runs again, and the resume count does not claim it.
+    stray = tmp_path / "sweeps" / "study" / "older-name" / "result.h5"
+    stray.parent.mkdir()
+    missing.rename(stray)
     with h5py.File(incomplete, "r+") as f:
         f.attrs["complete"] = False
     stamps = [p.stat().st_mtime_ns for p in kept]
