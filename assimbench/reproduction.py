@@ -4,7 +4,8 @@ A card is a YAML file (see ``experiments/published/``) with keys
 ``title``, ``source``, ``overrides`` (a list), ``metric`` (a summary name),
 ``full`` and ``short`` (each ``cycles``, ``burn_in``, ``replicates``,
 ``band: [low, high]``), and optionally ``better_than`` / ``worse_than``
-naming another card whose measured metric this one must beat / trail.
+naming another card whose measured metric this one must beat / trail, and
+``tuned`` (setting -> [low, high]): where tuning that setting should land.
 """
 
 import os
@@ -25,6 +26,7 @@ class Card:
     lengths: dict
     better_than: str | None = None
     worse_than: str | None = None
+    tuned: dict | None = None
 
 
 def load_cards(folder: str) -> dict:
@@ -44,6 +46,7 @@ def load_cards(folder: str) -> dict:
                 lengths={"full": raw["full"], "short": raw["short"]},
                 better_than=raw.get("better_than"),
                 worse_than=raw.get("worse_than"),
+                tuned=raw.get("tuned"),
             )
     return cards
 

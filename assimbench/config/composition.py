@@ -192,6 +192,11 @@ def _lane_key_error(key: str, known: list, values: str) -> ConfigError:
     return ConfigError(f"lanes.{key} is not a lane key{hint}")
 
 
+def lane_key_error(cfg, key: str, values: str) -> ConfigError:
+    """The refusal of ``lanes.<key>`` for a composed ``cfg`` whose lanes have no such key."""
+    return _lane_key_error(key, [k for k in _all_keys(cfg) if not k.startswith("hydra.")], values)
+
+
 def compose_job(overrides=(), validate: bool = True, config_name: str = "config", config_path=None,
                 base=None) -> tuple:
     """(config, Hydra's node) of one job, composed as Hydra composes it: ``config_name`` from

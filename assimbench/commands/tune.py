@@ -1,0 +1,138 @@
+"""Console script ``assimbench-tune``: find the settings that minimise a run's error, point by point.
+
+    assimbench-tune filter=etkf,letkf filter.members=10,20 'tune.filter.inflation=[1.0,1.3]' \\
+        cycles=2000 burn_in=500 replicates=2 study=studies/ring
+
+Takes the main command's overrides (or ``--config-path DIR --config-name NAME``), the study's keys
+(:mod:`assimbench.tuning.study`) and ``tune.<setting>=[low,high]`` for each traced setting to tune.
+Every static point (combination of the comma lists) is searched by adaptive refinement on paired
+lanes (:mod:`assimbench.tuning.search`); one line per pass shows the progress; the study folder gets
+the tuned table, the figures and one ready-to-run config per point
+(:mod:`assimbench.tuning.outputs`). Re-running the same command resumes: finished points are read
+back, not recomputed. Bad input: one line on stderr, exit status 2, nothing written.
+"""
+
+import copy
+import math
+import os
+import sys
+
+from omegaconf import OmegaConf
+
+from assimbench.api import run_experiment
+from assimbench.commands._hydra import fail, prepare_hydra
+from assimbench.config.checks import ConfigError
+from assimbench.io.atomic import unwritable
+from assimbench.report.words import setting_word
+from assimbench.tuning import outputs
+from assimbench.tuning.search import search
+from assimbench.tuning.study import check_point, evaluator, pass_cost, split_arguments, static_points, study_folder
+
+COMMAND = "assimbench-tune"
+USAGE = __doc__.split("\n\n")[0] + "\n\n" + __doc__.split("\n\n")[1]
+
+
+def prepare(argv: list) -> tuple:
+    """(points, axes, options, folder, per-point budget): everything checked before anything runs."""
+    rest, axes, options = split_arguments(argv)
+    points = static_points(rest)
+    for point in points:
+        check_point(point, axes, options)
+    share = len(points)
+    cycles = None if options.budget_cycles is None else options.budget_cycles // share
+    seconds = None if options.budget_seconds is None else options.budget_seconds / share
+    for point in points:
+        cost = pass_cost(point, options, axes)
+        if cycles is not None and cost > cycles:
+            raise ConfigError(f"budget_cycles={options.budget_cycles} is too small: one pass of {point.name} costs "
+                              f"{cost:,} run-cycles (cycles x {options.points}^{len(axes)} lanes x replicates), "
+                              f"and the budget is shared by {share} point{'s' if share > 1 else ''}")
+    folder = study_folder(options)
+    problem = unwritable(folder)
+    if problem:
+        raise ConfigError(f"{problem}; choose another study=")
+    return points, axes, options, folder, (cycles, seconds)
+
+
+def progress(point):
+    """The per-pass line: the point, the grid searched, the best so far with its interval."""
+
+    def report(outcome, this_pass):
+        number = this_pass[0].pass_number
+        spans = []
+        for j, axis in enumerate(outcome.axes):
+            values = [c.values[j] for c in this_pass]
+            spans.append(f"{setting_word(axis.key)} {min(values):.4g}..{max(values):.4g}")
+        lost = sum(c.lost for c in this_pass)
+        head = f"{point.name}  pass {number}: {', '.join(spans)} ({len(this_pass)} lanes, {lost} lost)"
+        kept = [c for c in this_pass if not c.lost]
+        if outcome.minimiser is None or not kept:
+            print(f"{head}; every candidate lost", flush=True)
+            return
+        lowest = min(kept, key=lambda c: c.mean)
+        where = ", ".join(f"{setting_word(a.key)} {v:.5g}" for a, v in zip(outcome.axes, outcome.minimiser))
+        spread = ", ".join(f"+- {(high - low) / 2:.2g}" if math.isfinite(low) else "+- ?"
+                           for low, high in outcome.ranges.values())
+        print(f"{head}; lowest {lowest.mean:.4f} +- {(lowest.high - lowest.low) / 2:.4f}; "
+              f"minimiser {where} ({spread})", flush=True)
+
+    return report
+
+
+def confirm(point, tuned: dict, objective: str) -> tuple:
+    """(mean, low, high) of ``objective`` from one standalone run at the tuned settings (the same
+    seeds as the search): exactly what the point's written config gives with the main command."""
+    cfg = copy.deepcopy(point.config)
+    for key, value in tuned.items():
+        OmegaConf.update(cfg, key, float(value), merge=False)
+    OmegaConf.update(cfg, "output", None, merge=False)
+    summary = run_experiment(cfg, keep_series=False).summary
+    return summary[objective], summary.get(objective + "_low", math.nan), summary.get(objective + "_high", math.nan)
+
+
+def tune_point(point, axes, options, folder, budget) -> dict:
+    """Search one point (or read it back when finished with the same inputs) and write its files."""
+    key = point.key(axes, options, budget)
+    data = outputs.load_record(folder, point.name, key)
+    if data is not None:
+        print(f"{point.name}: finished earlier, read back from {os.path.join(folder, 'points')}", flush=True)
+        return data
+    outcome = search(axes, evaluator(point, axes, options.objective), points=options.points, passes=options.passes,
+                     tolerance=options.tolerance, budget_cycles=budget[0], budget_seconds=budget[1],
+                     pass_cost=pass_cost(point, options, axes), report=progress(point))
+    confirmed = None
+    if outcome.minimiser is not None:
+        confirmed = confirm(point, dict(zip((a.key for a in axes), outcome.minimiser)), options.objective)
+        print(f"{point.name}  tuned run: {options.objective} {confirmed[0]:.4f} "
+              f"+- {(confirmed[2] - confirmed[1]) / 2:.4f}", flush=True)
+    data = outputs.record(point, outcome, key, options.objective, confirmed)
+    if data["best"] is not None:
+        outputs.write_config(folder, point, data["best"])
+    outputs.landscape(data, os.path.join(folder, f"landscape_{point.name}.png"))
+    outputs.save_record(folder, data)  # last: a point counts as finished only with all its files
+    return data
+
+
+def main(argv=None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    if any(a in ("-h", "--help") for a in argv):
+        print(USAGE)
+        return 0
+    prepare_hydra()
+    try:
+        points, axes, options, folder, budget = prepare(argv)
+    except ConfigError as err:
+        return fail(COMMAND, str(err))
+    records = [tune_point(point, axes, options, folder, budget) for point in points]
+    outputs.write_tables(folder, records)
+    if any(r["members"] for r in records):
+        outputs.tuned_curve(records, os.path.join(folder, "tuned_curve.png"))
+    print("tuned (in brackets: the 95% range of each tuned setting; the error is that of a run at the tuned settings):")
+    for data in records:
+        print("  " + outputs.summary_line(data))
+    print(f"study: {folder}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,1 @@
+"""Tuning on demand: traced settings searched by adaptive refinement on paired lanes."""
