@@ -13,6 +13,7 @@ back, not recomputed. Bad input: one line on stderr, exit status 2, nothing writ
 """
 
 import copy
+import dataclasses
 import math
 import os
 import sys
@@ -20,16 +21,33 @@ import sys
 from omegaconf import OmegaConf
 
 from assimbench.api import run_experiment
-from assimbench.commands._hydra import fail, prepare_hydra
+from assimbench.commands._hydra import compose_jobs, expand_jobs, fail, job_folder, prepare_hydra, user_config_arguments
 from assimbench.config.checks import ConfigError
 from assimbench.io.atomic import unwritable
 from assimbench.report.words import setting_word
 from assimbench.tuning import outputs
 from assimbench.tuning.search import search
-from assimbench.tuning.study import check_point, evaluator, pass_cost, split_arguments, static_points, study_folder
+from assimbench.tuning.study import Point, check_point, evaluator, pass_cost, split_arguments, study_folder
 
 COMMAND = "assimbench-tune"
 USAGE = __doc__.split("\n\n")[0] + "\n\n" + __doc__.split("\n\n")[1]
+
+
+def static_points(rest: list) -> list:
+    """Every static point of the main command's arguments, composed and checked, each named by the
+    overrides that tell it from the others."""
+    argv = user_config_arguments(rest, "config")
+    _, jobs = compose_jobs(["-m"] + argv)
+    overrides = [job for job in expand_jobs([a for a in argv if "=" in a and not a.startswith("-")], True)]
+    if len(overrides) != len(jobs):
+        overrides = [[] for _ in jobs]
+    varied = [set(job) for job in overrides]
+    shared = set.intersection(*varied) if varied else set()
+    points = []
+    for job, cfg in zip(overrides, jobs):
+        own = [o for o in job if o not in shared and not o.startswith("hydra")]
+        points.append(Point(job_folder(own) if own else "point", job, cfg))
+    return points
 
 
 def prepare(argv: list) -> tuple:
@@ -80,14 +98,39 @@ def progress(point):
 
 
 def confirm(point, tuned: dict, objective: str) -> tuple:
-    """(mean, low, high) of ``objective`` from one standalone run at the tuned settings (the same
-    seeds as the search): exactly what the point's written config gives with the main command."""
+    """((mean, low, high) of ``objective``, lost) from one standalone run at the tuned settings (the
+    same seeds as the search): exactly what the point's written config gives with the main command.
+    lost: a replicate diverged, or the objective is not finite."""
     cfg = copy.deepcopy(point.config)
     for key, value in tuned.items():
         OmegaConf.update(cfg, key, float(value), merge=False)
     OmegaConf.update(cfg, "output", None, merge=False)
-    summary = run_experiment(cfg, keep_series=False).summary
-    return summary[objective], summary.get(objective + "_low", math.nan), summary.get(objective + "_high", math.nan)
+    result = run_experiment(cfg, keep_series=False)
+    summary = result.summary
+    value = (summary[objective], summary.get(objective + "_low", math.nan), summary.get(objective + "_high", math.nan))
+    return value, bool(result.diverged) or not math.isfinite(value[0])
+
+
+def tuned_run(point, outcome, objective: str) -> tuple:
+    """(outcome, the tuned run's value or None): the run at the fitted minimiser; when that run loses
+    the truth or is worse than the lowest kept candidate's upper 95% limit (a minimiser fitted next
+    to the edge where the filter diverges, where the error is rough), the lowest kept candidate
+    instead, whose run is the one the search already made."""
+    if outcome.minimiser is None:
+        return outcome, None
+    keys = [a.key for a in outcome.axes]
+    value, lost = confirm(point, dict(zip(keys, outcome.minimiser)), objective)
+    lowest = min((c for c in outcome.candidates if not c.lost), key=lambda c: c.mean)
+    if lost or value[0] > lowest.high:
+        what = "lost the truth" if lost else f"is worse ({value[0]:.4f}) than the lowest candidate's 95% limit"
+        print(f"{point.name}  the run at the fitted minimiser {what}; the lowest kept candidate "
+              f"({', '.join(f'{setting_word(k)} {v:.5g}' for k, v in zip(keys, lowest.values))}) is reported",
+              flush=True)
+        outcome = dataclasses.replace(outcome, minimiser=lowest.values,
+                                      stopped=f"{outcome.stopped}; fitted minimiser failed, lowest candidate kept")
+        value, _ = confirm(point, dict(zip(keys, lowest.values)), objective)
+    print(f"{point.name}  tuned run: {objective} {value[0]:.4f} +- {(value[2] - value[1]) / 2:.4f}", flush=True)
+    return outcome, value
 
 
 def tune_point(point, axes, options, folder, budget) -> dict:
@@ -100,11 +143,7 @@ def tune_point(point, axes, options, folder, budget) -> dict:
     outcome = search(axes, evaluator(point, axes, options.objective), points=options.points, passes=options.passes,
                      tolerance=options.tolerance, budget_cycles=budget[0], budget_seconds=budget[1],
                      pass_cost=pass_cost(point, options, axes), report=progress(point))
-    confirmed = None
-    if outcome.minimiser is not None:
-        confirmed = confirm(point, dict(zip((a.key for a in axes), outcome.minimiser)), options.objective)
-        print(f"{point.name}  tuned run: {options.objective} {confirmed[0]:.4f} "
-              f"+- {(confirmed[2] - confirmed[1]) / 2:.4f}", flush=True)
+    outcome, confirmed = tuned_run(point, outcome, options.objective)
     data = outputs.record(point, outcome, key, options.objective, confirmed)
     if data["best"] is not None:
         outputs.write_config(folder, point, data["best"])

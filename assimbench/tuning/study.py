@@ -29,7 +29,6 @@ from omegaconf import OmegaConf
 from omegaconf.errors import OmegaConfBaseException
 
 from assimbench.api import run_experiment
-from assimbench.commands._hydra import compose_jobs, expand_jobs, job_folder, user_config_arguments
 from assimbench.config.checks import ConfigError
 from assimbench.config.choice import check
 from assimbench.config.composition import lane_key_error
@@ -140,23 +139,6 @@ def split_arguments(argv: list) -> tuple:
         if value is not None and value <= 0:
             raise ConfigError(f"{name}={value} is not allowed: a number > 0")
     return rest, tuple(axes), options
-
-
-def static_points(rest: list) -> list:
-    """Every static point of the main command's arguments, composed and checked, each named by the
-    overrides that tell it from the others."""
-    argv = user_config_arguments(rest, "config")
-    _, jobs = compose_jobs(["-m"] + argv)
-    overrides = [job for job in expand_jobs([a for a in argv if "=" in a and not a.startswith("-")], True)]
-    if len(overrides) != len(jobs):
-        overrides = [[] for _ in jobs]
-    varied = [set(job) for job in overrides]
-    shared = set.intersection(*varied) if varied else set()
-    points = []
-    for job, cfg in zip(overrides, jobs):
-        own = [o for o in job if o not in shared and not o.startswith("hydra")]
-        points.append(Point(job_folder(own) if own else "point", job, cfg))
-    return points
 
 
 def with_lanes(cfg, axes: tuple, values: np.ndarray):

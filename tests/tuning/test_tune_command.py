@@ -142,3 +142,13 @@ def test_tuning_finds_the_published_etkf_card_for_fewer_cycles_than_a_grid(card_
     last_step = np.diff(sorted({c["values"][0] for c in data["candidates"] if c["pass"] == data["passes"]}))[0]
     grid_cycles = (round(0.3 / last_step) + 1) * length["cycles"] * length["replicates"]
     assert int(row["cycles_spent"]) < grid_cycles
+
+
+def test_a_study_starts_from_an_experiment_file(tmp_path, capsys):
+    """The file's values are the study's: its cycles and replicates set the cost of a pass."""
+    (tmp_path / "mine.yaml").write_text("defaults:\n  - config\n  - override model: lorenz63\n  - _self_\n"
+                                        "filter:\n  members: 6\ncycles: 100\nburn_in: 20\nreplicates: 3\n")
+    argv = ["--config-path", str(tmp_path), "--config-name", "mine", "tune.filter.inflation=[1.0,1.2]",
+            "budget_cycles=10", f"study={tmp_path / 'study'}"]
+    assert command.main(argv) == 2
+    assert "one pass of point costs 2,100 run-cycles" in capsys.readouterr().err  # 100 cycles x 7 lanes x 3
