@@ -78,8 +78,18 @@ def test_the_budget_stops_the_search_before_a_pass_it_cannot_pay_for():
 
 
 def test_the_response_surface_of_an_exact_quadratic_is_its_vertex():
-    """Least squares through exact quadratic values recovers the vertex -b/(2c) (textbook identity)."""
+    """Least squares through exact quadratic values recovers the vertex -b/(2c) (textbook identity),
+    to the resolution of the region it is minimised over (401 points), with a range of that width."""
     units = np.linspace(0, 1, 7)[:, None]
     means = 0.3 + 2.0 * (units[:, 0] - 0.4321) ** 2
-    centre, se = fit_minimiser(units, means, 1 / 6)
-    assert centre[0] == pytest.approx(0.4321, abs=1e-10) and se[0] < 1e-6
+    centre, low, high = fit_minimiser(units, means, np.inf)
+    assert centre[0] == pytest.approx(0.4321, abs=1.25e-3) and high[0] - low[0] <= 2 / 400 + 1e-12
+
+
+def test_a_minimum_on_the_edge_of_the_kept_region_is_found_with_a_one_sided_range():
+    """The error falls towards the edge where the filter is lost: the fitted minimum sits on the
+    edge of the fitted region, not beyond it, and its range reaches into the region only."""
+    units = np.linspace(0.2, 1, 5)[:, None]
+    means = 0.2 + 0.3 * units[:, 0] + 0.1 * units[:, 0] ** 2 + 1e-4 * np.array([1, -1, 1, -1, 1])
+    centre, low, high = fit_minimiser(units, means, np.inf)
+    assert centre[0] == pytest.approx(0.2) and low[0] == pytest.approx(0.2) and high[0] < 0.3
