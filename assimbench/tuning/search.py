@@ -18,28 +18,31 @@ roughness (measured on the demo ring, 1,500 cycles: inflations 1.01605 and
 1.01667 differed by 0.013 in RMSE with a paired interval of +-0.005). So the
 minimiser is estimated from a local quadratic response surface (Box & Wilson
 1951, J. R. Stat. Soc. B 13; from memory): a least-squares fit of a full
-quadratic to the kept candidates (pass 1: those within two grid steps of
-its lowest candidate, where the landscape may be far from quadratic; later
-passes: every kept candidate inside the window, from any pass), minimised
-over the fitted region, so a minimum on the region's edge (the error
-falling towards the inflation where the filter is lost) is found too. The
-fit's residuals measure the roughness the intervals miss (never taken below
-the candidates' own paired sampling noise); a parametric bootstrap of the fit
-gives the minimiser's 95% range. A range that reaches the edge of the fitted
-region, with kept candidates or unexplored bounds beyond it, is cut short
-(open): it says nothing about precision. The estimate reported is that of
-the closed fit with the narrowest range (an open one only when no fit was
-closed, and the stop reason then says so).
+quadratic to the kept candidates, minimised over the fitted region, so a
+minimum on the region's edge (the error falling towards the inflation where
+the filter is lost) is found too. The fit's residuals measure the roughness
+the intervals miss (never taken below the candidates' own paired sampling
+noise); a parametric bootstrap of the fit gives the minimiser's 95% range.
+Pass 1 fits near its lowest candidate (over the whole bounds the landscape
+need not be quadratic); every later pass refits every kept candidate of
+every pass inside pass 2's window, one coarse step either side of pass 1's
+estimate: a scale at which the curvature shows above the roughness, with
+more points near the minimum after each pass. When the range reaches the
+edge of that region (not the end of the bounds, nor within the tolerance of
+a lost candidate), the stop reason says so: the minimiser's place is then
+less certain than the range.
 
 A lost candidate (diverged, or a non-finite objective) counts as infinitely
 bad: it is never the minimiser and never fitted, and the minimiser never
 leaves the region of kept candidates.
 
 The search stops at the first of:
-- ``resolved``: a closed 95% range spans two grid steps or more on every
-  axis: the next window would hold nothing the noise lets us tell apart;
+- ``resolved``: the 95% range spans two grid steps or more on every axis: the
+  next window would hold nothing the noise lets us tell apart;
 - ``tolerance``: the grid step, or the range, is below ``tolerance`` x the
   bounds' width on every axis;
+(a range that reaches the fitted region's edge with unexplored settings
+beyond it stops neither: the search goes on towards that edge)
 - ``passes``: the pass limit;
 - ``budget``: the next pass would spend more run-cycles (cycles x lanes x
   replicates) than remain, or the wall-time budget would be passed;
@@ -205,22 +208,23 @@ def fit_minimiser(units: np.ndarray, means: np.ndarray, step: float, noise: np.n
     return region[best], low, high
 
 
-def open_sides(low: np.ndarray, high: np.ndarray, inside: list, candidates: list) -> np.ndarray:
+def open_sides(low: np.ndarray, high: np.ndarray, inside: list, candidates: list, tolerance: float) -> np.ndarray:
     """(k,) True where the range [low, high] is cut by the fitted region: it reaches the region's
-    edge, and beyond that edge there are kept candidates or unexplored bounds (not only lost
-    candidates, and not the end of the bounds). Such a range is a lower bound on the uncertainty."""
+    edge and that edge is not the end of the bounds, nor within ``tolerance`` of a lost candidate
+    beyond it (the edge of the lost region, found to the tolerance). Such a range is a lower bound on
+    the uncertainty, and the search goes on towards that edge."""
     units = np.array([c.unit for c in inside])
     region_low, region_high = units.min(axis=0), units.max(axis=0)
     tiny = 1e-9
     cut = np.zeros(len(low), dtype=bool)
     for j in range(len(low)):
-        for touches, edge, beyond in ((low[j] <= region_low[j] + tiny, region_low[j], lambda u, e: u < e - tiny),
-                                      (high[j] >= region_high[j] - tiny, region_high[j], lambda u, e: u > e + tiny)):
+        for touches, edge, sign in ((low[j] <= region_low[j] + tiny, region_low[j], -1),
+                                    (high[j] >= region_high[j] - tiny, region_high[j], 1)):
             if not touches or edge <= tiny or edge >= 1 - tiny:
                 continue
-            outside = [c for c in candidates if beyond(c.unit[j], edge)]
-            nearest = min(outside, key=lambda c: abs(c.unit[j] - edge), default=None)
-            cut[j] |= nearest is None or not nearest.lost
+            lost_gap = min((sign * (c.unit[j] - edge) for c in candidates if c.lost and sign * (c.unit[j] - edge) > tiny),
+                           default=np.inf)
+            cut[j] |= not lost_gap <= tolerance + tiny
     return cut
 
 
@@ -249,7 +253,7 @@ def search(axes: tuple, evaluate, points: int = 7, passes: int = 8, tolerance: f
     started = time.perf_counter()
     candidates, spent, burn_in = [], 0, 0
     centre, step, stopped, number = None, 1.0, "passes", 0
-    minimiser, box, box_closed = None, None, False
+    minimiser, box, windows, fitted = None, None, [], []
     for number in range(1, passes + 1):
         if budget_cycles is not None and spent + pass_cost > budget_cycles:
             stopped, number = "budget", number - 1
@@ -272,24 +276,20 @@ def search(axes: tuple, evaluate, points: int = 7, passes: int = 8, tolerance: f
                                        lost, series, number))
         candidates += this_pass
         kept = [c for c in this_pass if not c.lost]
+        windows.append((units.min(axis=0) - 1e-12, units.max(axis=0) + 1e-12))
         if kept:
             # Pass 1 spans the bounds, where the landscape need not be quadratic: fit near its lowest
-            # point. A later pass's window is already local: fit every kept candidate inside it, from
-            # any pass (they share the truths).
-            low, high = units.min(axis=0) - 1e-12, units.max(axis=0) + 1e-12
-            inside = kept if number == 1 else [c for c in candidates if not c.lost and
-                                                np.all((np.array(c.unit) >= low) & (np.array(c.unit) <= high))]
+            # candidate. From pass 2 on, fit every kept candidate of every pass inside pass 2's
+            # window (one coarse step either side of pass 1's estimate): a scale where the curvature
+            # shows above the roughness, with more points near the minimum after every pass.
+            inside = kept if number == 1 else _within(candidates, windows[1])
             centre_unit, low_unit, high_unit = fit_minimiser(
                 np.array([c.unit for c in inside]), np.array([c.mean for c in inside]),
                 step if number == 1 else np.inf, paired_noise(inside, burn_in))
             centre = tuple(float(u) for u in centre_unit)
             width = high_unit - low_unit
-            closed = np.all(np.isfinite(width)) and not open_sides(low_unit, high_unit, inside, candidates).any()
-            # The estimate kept is the most precise closed one so far: a window narrower than the noise
-            # can resolve cuts the range at its edges (open), which is no gain in precision.
-            if box is None or (closed and (not box_closed or np.all(width <= box[1] - box[0]))):
-                minimiser = tuple(float(axis.value(centre[j])) for j, axis in enumerate(axes))
-                box, box_closed = (low_unit, high_unit), closed
+            minimiser = tuple(float(axis.value(centre[j])) for j, axis in enumerate(axes))
+            box, fitted = (low_unit, high_unit), inside
         if report is not None:
             report(_outcome(axes, candidates, minimiser, box, spent, started, number, "", burn_in), this_pass)
         if minimiser is None:
@@ -297,15 +297,26 @@ def search(axes: tuple, evaluate, points: int = 7, passes: int = 8, tolerance: f
             break
         if not kept:
             continue  # this pass lost everything: zoom on the last minimiser again
+        # A range cut at the edge of the fitted region, with unexplored settings beyond it (the gap
+        # before the first lost candidate, say), says neither that the noise dominates nor that the
+        # minimiser is placed: search on towards that edge.
+        closed = not open_sides(low_unit, high_unit, inside, candidates, tolerance).any()
         if closed and np.all(width >= 2 * step):
             stopped = "resolved"  # the next window would hold nothing the noise lets us tell apart
             break
         if step < tolerance or (closed and np.all(width < tolerance)):
             stopped = "tolerance"
             break
-    if minimiser is not None and not box_closed:
-        stopped += "; range cut by the search window"
+    if minimiser is not None and np.all(np.isfinite(box[1] - box[0])) and open_sides(
+            box[0], box[1], fitted, candidates, tolerance).any():
+        stopped += "; range reaches the edge of the searched region"
     return _outcome(axes, candidates, minimiser, box, spent, started, number, stopped, burn_in)
+
+
+def _within(candidates: list, window: tuple) -> list:
+    """The kept candidates inside a window (unit box)."""
+    low, high = window
+    return [c for c in candidates if not c.lost and np.all((np.array(c.unit) >= low) & (np.array(c.unit) <= high))]
 
 
 def _outcome(axes, candidates, minimiser, box, spent, started, number, stopped, burn_in) -> Outcome:
