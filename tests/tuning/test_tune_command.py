@@ -141,3 +141,9 @@ def test_tuning_finds_the_published_etkf_card_for_fewer_cycles_than_a_grid(card_
     # The card's inflation is given to 0.01: a grid at that step over the same bounds is 31 runs.
     grid_cycles = 31 * length["cycles"] * length["replicates"]
     assert int(row["cycles_spent"]) < grid_cycles
+
+
+def test_help_prints_the_usage_and_exits_zero(capsys):
+    assert command.main(["--help"]) == 0
+    out = capsys.readouterr().out
+    assert "assimbench-tune" in out and "tune.filter.inflation=[1.0,1.3]" in out
