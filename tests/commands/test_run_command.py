@@ -105,16 +105,21 @@ BAD_INPUT = [
 ]
 
 
-@pytest.mark.parametrize("args, words", BAD_INPUT, ids=[" ".join(a) for a, _ in BAD_INPUT])
-def test_bad_input_is_one_line_exit_two_and_nothing_written(args, words, tmp_path, monkeypatch, capsys):
-    monkeypatch.chdir(tmp_path)
-    status = cli.main(args)
+def _refused_in_one_line(status: int, words, capsys):
+    """Exit status 2 and one line on stderr holding every word; returns what was captured."""
     captured = capsys.readouterr()
     assert status == 2
     lines = captured.err.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("assimbench: error: "), captured.err
     for word in words:
         assert word in lines[0], (word, lines[0])
+    return captured
+
+
+@pytest.mark.parametrize("args, words", BAD_INPUT, ids=[" ".join(a) for a, _ in BAD_INPUT])
+def test_bad_input_is_one_line_exit_two_and_nothing_written(args, words, tmp_path, monkeypatch, capsys):
+    monkeypatch.chdir(tmp_path)
+    captured = _refused_in_one_line(cli.main(args), words, capsys)
     assert captured.out == ""
     assert list(tmp_path.iterdir()) == []
 
@@ -299,13 +304,7 @@ USER_FILE_FAULTS = [
 def test_a_bad_value_in_a_users_file_is_one_line_naming_the_key(text, words, tmp_path, monkeypatch, capsys):
     _study(tmp_path, text)
     monkeypatch.chdir(tmp_path)
-    status = cli.main(["--config-path", "studies", "--config-name", "ring"])
-    captured = capsys.readouterr()
-    assert status == 2
-    lines = captured.err.strip().splitlines()
-    assert len(lines) == 1 and lines[0].startswith("assimbench: error: "), captured.err
-    for word in words:
-        assert word in lines[0], (word, lines[0])
+    _refused_in_one_line(cli.main(["--config-path", "studies", "--config-name", "ring"]), words, capsys)
     assert [p.name for p in tmp_path.iterdir()] == ["studies"]  # nothing written
 
 
