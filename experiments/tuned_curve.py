@@ -1,7 +1,7 @@
 """The tuned curves of the ETKF and the LETKF on the demo ring, found by assimbench-tune.
 
-    python experiments/tuned_curve.py                 # members 5, 10, 20, 40 (about 25 minutes on 2 cores)
-    python experiments/tuned_curve.py --members 10 40 --cycles 600
+    python experiments/tuned_curve.py                 # members 5, 10, 20, 40
+    python experiments/tuned_curve.py --members 10 40 --cycles 400
 
 The ETKF's inflation is tuned alone; the LETKF's inflation and localization radius together (the
 radius on a log scale). Both studies go to experiments/tuned_curve/ (resumable: a second call reads
@@ -24,7 +24,7 @@ FOLDER = os.path.join(os.path.dirname(os.path.abspath(__file__)), "tuned_curve")
 def study(name: str, members: list, extra: list, cycles: int) -> dict:
     folder = os.path.join(FOLDER, name)
     argv = [f"filter.members={','.join(map(str, members))}", f"cycles={cycles}", f"burn_in={cycles // 5}",
-            "replicates=2", "passes=4", f"study={folder}"] + extra
+            "replicates=2", "passes=3", f"study={folder}"] + extra
     if tune.main(argv) != 0:
         raise SystemExit(f"tuned_curve: the {name} study was refused")
     with open(os.path.join(folder, "tuned.csv"), newline="") as handle:
@@ -34,10 +34,12 @@ def study(name: str, members: list, extra: list, cycles: int) -> dict:
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--members", type=int, nargs="+", default=[5, 10, 20, 40])
-    parser.add_argument("--cycles", type=int, default=1000)
+    parser.add_argument("--cycles", type=int, default=600)
+    parser.add_argument("--points", type=int, default=3,
+                        help="values per axis per pass of the LETKF's 2-D search (points^2 lanes)")
     args = parser.parse_args()
     etkf = study("etkf", args.members, ["filter=etkf", "tune.filter.inflation=[1.0,1.3]"], args.cycles)
-    letkf = study("letkf", args.members, ["filter=letkf", "points=5", "tune.filter.inflation=[1.0,1.3]",
+    letkf = study("letkf", args.members, ["filter=letkf", f"points={args.points}", "tune.filter.inflation=[1.0,1.3]",
                                           "tune.filter.radius=[2,20,log]"], args.cycles)
     print(f"{'members':>8}  {'ETKF RMSE':>18}  {'LETKF RMSE':>18}  LETKF radius")
     for m in args.members:

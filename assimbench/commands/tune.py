@@ -18,12 +18,14 @@ import math
 import os
 import sys
 
+import numpy as np
 from omegaconf import OmegaConf
 
 from assimbench.api import run_experiment
 from assimbench.commands._hydra import compose_jobs, expand_jobs, fail, job_folder, prepare_hydra, user_config_arguments
 from assimbench.config.checks import ConfigError
 from assimbench.io.atomic import unwritable
+from assimbench.report.pooling import FailingLevel
 from assimbench.report.words import setting_word
 from assimbench.tuning import outputs
 from assimbench.tuning.search import search
@@ -46,7 +48,10 @@ def static_points(rest: list) -> list:
     points = []
     for job, cfg in zip(overrides, jobs):
         own = [o for o in job if o not in shared and not o.startswith("hydra")]
-        points.append(Point(job_folder(own) if own else "point", job, cfg))
+        if not own:  # a single point: named by its filter and size
+            own = [f"filter={cfg.filter.name}"] + ([f"filter.members={cfg.filter.members}"]
+                                                    if "members" in cfg.filter else [])
+        points.append(Point(job_folder(own), job, cfg))
     return points
 
 
@@ -66,6 +71,11 @@ def prepare(argv: list) -> tuple:
                               f"{cost:,} run-cycles (cycles x {options.points}^{len(axes)} lanes x replicates), "
                               f"and the budget is shared by {share} point{'s' if share > 1 else ''}")
     folder = study_folder(options)
+    for point in points:
+        if outputs.other_record(folder, point.name, point.key(axes, options, (cycles, seconds))):
+            raise ConfigError(f"study={options.study} already holds {point.name} tuned with other inputs (config, "
+                              f"bounds, search or budget); choose another study= or remove "
+                              f"{os.path.join(folder, 'points', point.name + '.json')}")
     problem = unwritable(folder)
     if problem:
         raise ConfigError(f"{problem}; choose another study=")
@@ -89,35 +99,48 @@ def progress(point):
             return
         lowest = min(kept, key=lambda c: c.mean)
         where = ", ".join(f"{setting_word(a.key)} {v:.5g}" for a, v in zip(outcome.axes, outcome.minimiser))
-        spread = ", ".join(f"+- {(high - low) / 2:.2g}" if math.isfinite(low) else "+- ?"
+        spread = ", ".join(f"[{low:.5g}, {high:.5g}]" if math.isfinite(low) else "[range unknown]"
                            for low, high in outcome.ranges.values())
         print(f"{head}; lowest {lowest.mean:.4f} +- {(lowest.high - lowest.low) / 2:.4f}; "
-              f"minimiser {where} ({spread})", flush=True)
+              f"minimiser {where} {spread}", flush=True)
 
     return report
 
 
-def confirm(point, tuned: dict, objective: str) -> tuple:
-    """((mean, low, high) of ``objective``, lost) from one standalone run at the tuned settings (the
-    same seeds as the search): exactly what the point's written config gives with the main command.
-    lost: a replicate diverged, or the objective is not finite."""
+def confirm(point, tuned: dict, objective: str, seed_shift: int = 0) -> tuple:
+    """((mean, low, high) of ``objective``, lost replicates) from one standalone run at the tuned
+    settings; with ``seed_shift`` 0 the search's seeds (exactly what the point's written config gives
+    with the main command), else the seed moved by it: fresh truths and observations. A replicate is
+    lost as in the search (:func:`lost_lanes`)."""
     cfg = copy.deepcopy(point.config)
     for key, value in tuned.items():
         OmegaConf.update(cfg, key, float(value), merge=False)
     OmegaConf.update(cfg, "output", None, merge=False)
+    OmegaConf.update(cfg, "seed", int(cfg.seed) + seed_shift, merge=False)
     result = run_experiment(cfg, keep_series=False)
     summary = result.summary
     value = (summary[objective], summary.get(objective + "_low", math.nan), summary.get(objective + "_high", math.nan))
-    return value, bool(result.diverged) or not math.isfinite(value[0])
+    lost = int(np.sum(np.atleast_1d(result.first_bad_cycle) >= 0))
+    flat = {"observation.transform": cfg.observation.transform, "observation.error_std": cfg.observation.error_std}
+    level, _ = FailingLevel().level(flat)
+    if level is not None and "rmse_analysis" in result.per_replicate:
+        above = ~(np.asarray(result.per_replicate["rmse_analysis"]) <= level)
+        lost = int(np.sum(above | (np.atleast_1d(result.first_bad_cycle) >= 0)))
+    if not math.isfinite(value[0]):
+        lost = max(lost, 1)
+    return value, lost
 
 
 def tuned_run(point, outcome, objective: str) -> tuple:
-    """(outcome, the tuned run's value or None): the run at the fitted minimiser; when that run loses
-    the truth or is worse than the lowest kept candidate's upper 95% limit (a minimiser fitted next
-    to the edge where the filter diverges, where the error is rough), the lowest kept candidate
-    instead, whose run is the one the search already made."""
+    """(outcome, the tuned run's value or None, the check on fresh seeds or None).
+
+    The tuned run is the run at the fitted minimiser with the search's seeds; when it loses the truth
+    or is worse than the lowest kept candidate's upper 95% limit (a minimiser fitted next to the edge
+    where the filter diverges, where the error is rough), the lowest kept candidate is taken instead.
+    The check runs the chosen settings again on fresh seeds (the seed + 1): an independent value,
+    free of the selection's optimism, and a warning when the setting loses the truth there."""
     if outcome.minimiser is None:
-        return outcome, None
+        return outcome, None, None
     keys = [a.key for a in outcome.axes]
     value, lost = confirm(point, dict(zip(keys, outcome.minimiser)), objective)
     lowest = min((c for c in outcome.candidates if not c.lost), key=lambda c: c.mean)
@@ -129,8 +152,12 @@ def tuned_run(point, outcome, objective: str) -> tuple:
         outcome = dataclasses.replace(outcome, minimiser=lowest.values,
                                       stopped=f"{outcome.stopped}; fitted minimiser failed, lowest candidate kept")
         value, _ = confirm(point, dict(zip(keys, lowest.values)), objective)
-    print(f"{point.name}  tuned run: {objective} {value[0]:.4f} +- {(value[2] - value[1]) / 2:.4f}", flush=True)
-    return outcome, value
+    fresh, fresh_lost = confirm(point, dict(zip(keys, outcome.minimiser)), objective, seed_shift=1)
+    print(f"{point.name}  tuned run: {objective} {value[0]:.4f} +- {(value[2] - value[1]) / 2:.4f}; on fresh seeds "
+          f"{fresh[0]:.4f} +- {(fresh[2] - fresh[1]) / 2:.4f}"
+          + (f", LOST {fresh_lost} of {int(point.config.replicates)} replicates: not robust" if fresh_lost else ""),
+          flush=True)
+    return outcome, value, (fresh, fresh_lost)
 
 
 def tune_point(point, axes, options, folder, budget) -> dict:
@@ -143,8 +170,8 @@ def tune_point(point, axes, options, folder, budget) -> dict:
     outcome = search(axes, evaluator(point, axes, options.objective), points=options.points, passes=options.passes,
                      tolerance=options.tolerance, budget_cycles=budget[0], budget_seconds=budget[1],
                      pass_cost=pass_cost(point, options, axes), report=progress(point))
-    outcome, confirmed = tuned_run(point, outcome, options.objective)
-    data = outputs.record(point, outcome, key, options.objective, confirmed)
+    outcome, confirmed, fresh = tuned_run(point, outcome, options.objective)
+    data = outputs.record(point, outcome, key, options.objective, confirmed, fresh)
     if data["best"] is not None:
         outputs.write_config(folder, point, data["best"])
     outputs.landscape(data, os.path.join(folder, f"landscape_{point.name}.png"))

@@ -33,9 +33,10 @@ from assimbench.tuning.search import Outcome
 GROUPS = ("model", "forecast_model", "filter")
 
 
-def record(point, outcome: Outcome, key: str, objective: str, confirmed) -> dict:
+def record(point, outcome: Outcome, key: str, objective: str, confirmed, fresh=None) -> dict:
     """A finished point as plain data (JSON). ``confirmed``: (mean, low, high) of the objective of a
-    standalone run at the tuned settings (what the written config gives), or None."""
+    standalone run at the tuned settings (what the written config gives), or None; ``fresh``:
+    ((mean, low, high), lost replicates) of the same settings on fresh seeds, or None."""
     tuned = outcome.minimiser
     return {
         "key": key, "name": point.name, "overrides": list(point.overrides), "filter": point.filter,
@@ -43,6 +44,8 @@ def record(point, outcome: Outcome, key: str, objective: str, confirmed) -> dict
         "axes": [{"key": a.key, "low": a.low, "high": a.high, "scale": a.scale} for a in outcome.axes],
         "best": None if tuned is None else dict(zip([a.key for a in outcome.axes], tuned)),
         "value": None if confirmed is None else list(confirmed),
+        "fresh": None if fresh is None else list(fresh[0]),
+        "fresh_lost": None if fresh is None else int(fresh[1]),
         "ranges": {k: list(v) for k, v in outcome.ranges.items()},
         "spent": outcome.spent, "seconds": outcome.seconds, "passes": outcome.passes, "stopped": outcome.stopped,
         "candidates": [{"values": list(c.values), "pass": c.pass_number, "lost": c.lost,
@@ -66,13 +69,20 @@ def load_record(folder: str, name: str, key: str):
     return data if isinstance(data, dict) and data.get("key") == key else None
 
 
+def other_record(folder: str, name: str, key: str) -> bool:
+    """True when the study holds a finished record of this point made with other inputs."""
+    path = os.path.join(folder, "points", f"{name}.json")
+    return os.path.exists(path) and load_record(folder, name, key) is None
+
+
 def table(records: list) -> tuple:
     """(columns, rows) of tuned.csv: the point's static keys, each tuned setting with the 95% range of
     its estimate, the objective of a run at the tuned settings with its 95% limits, and what was spent."""
     keys = list(dict.fromkeys(a["key"] for r in records for a in r["axes"]))
     objective = records[0]["objective"] if records else "rmse_analysis"
     columns = ["point", "filter", "members"] + [c for k in keys for c in (k, f"{k}_low", f"{k}_high")]
-    columns += [objective, f"{objective}_low", f"{objective}_high", "cycles_spent", "passes", "stopped"]
+    columns += [objective, f"{objective}_low", f"{objective}_high", f"fresh_{objective}", f"fresh_{objective}_low",
+                f"fresh_{objective}_high", "fresh_lost_replicates", "cycles_spent", "passes", "stopped"]
     rows = []
     for r in records:
         row = {"point": r["name"], "filter": r["filter"], "members": r["members"], "cycles_spent": r["spent"],
@@ -82,6 +92,9 @@ def table(records: list) -> tuple:
                 row[k] = r["best"].get(k, "")
                 row[f"{k}_low"], row[f"{k}_high"] = r["ranges"].get(k, ("", ""))
             row[objective], row[f"{objective}_low"], row[f"{objective}_high"] = r["value"]
+        if r.get("fresh") is not None:
+            row[f"fresh_{objective}"], row[f"fresh_{objective}_low"], row[f"fresh_{objective}_high"] = r["fresh"]
+            row["fresh_lost_replicates"] = r["fresh_lost"]
         rows.append(row)
     return columns, rows
 
@@ -151,12 +164,12 @@ def landscape(data: dict, path: str) -> str:
                     ax.axvspan(low, high, color=OKABE_ITO["sky blue"], alpha=0.25, lw=0,
                                label="tuned value's 95% range")
                 ax.plot([data["best"][key]], [data["value"][0]], marker="*", ms=14, color=OKABE_ITO["vermillion"],
-                        markeredgecolor="black", markeredgewidth=0.6, ls="none", label="tuned (its own run)")
+                        markeredgecolor="black", markeredgewidth=0.6, ls="none", label="reported setting (its own run)")
             if axes[0]["scale"] == "log":
                 ax.set_xscale("log")
                 ax.xaxis.set_major_formatter(matplotlib.ticker.FormatStrFormatter("%g"))
             ax.set_xlabel(f"{setting_word(axes[0]['key'])} (as configured)")
-            ax.set_ylabel(f"time-mean {objective} ({STATE_UNITS}), 95%")
+            ax.set_ylabel(f"time-mean {objective} ({STATE_UNITS}), 95% bars")
             ax.legend(fontsize=7.5)
         else:
             x = [c["values"][0] for c in kept]
@@ -216,11 +229,19 @@ def tuned_curve(records: list, path: str) -> str:
 def summary_line(data: dict) -> str:
     """One printed line per tuned point."""
     if data["value"] is None:
-        return f"{data['name']}: no tuned value, every candidate was lost ({data['passes']} passes)"
+        return (f"{data['name']}: no tuned value, every candidate was lost "
+                f"({data['passes']} pass{'es' if data['passes'] != 1 else ''})")
     mean, low, high = data["value"]
     half = (high - low) / 2 if math.isfinite(low) else float("nan")
     settings = ", ".join(f"{setting_word(k)} {v:.4g} [{data['ranges'][k][0]:.4g}, {data['ranges'][k][1]:.4g}]"
                          if math.isfinite(data["ranges"][k][0]) else f"{setting_word(k)} {v:.4g} [range unknown]"
                          for k, v in data["best"].items())
-    return (f"{data['name']}: {settings}; {metric_word(data['objective'])} {mean:.4f} +- {half:.4f} "
-            f"({data['passes']} passes, {data['spent']:,} run-cycles, stopped: {data['stopped']})")
+    fresh = ""
+    if data.get("fresh") is not None:
+        f_mean, f_low, f_high = data["fresh"]
+        fresh = f"; fresh seeds {f_mean:.4f} +- {(f_high - f_low) / 2:.4f}"
+        if data["fresh_lost"]:
+            fresh += f", LOST {data['fresh_lost']} replicate{'s' if data['fresh_lost'] > 1 else ''}: NOT ROBUST"
+    passes = f"{data['passes']} pass{'es' if data['passes'] != 1 else ''}"
+    return (f"{data['name']}: {settings}; {metric_word(data['objective'])} {mean:.4f} +- {half:.4f}{fresh} "
+            f"({passes}, {data['spent']:,} run-cycles, stopped: {data['stopped']})")

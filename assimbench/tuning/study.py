@@ -34,6 +34,7 @@ from assimbench.config.choice import check
 from assimbench.config.composition import lane_key_error
 from assimbench.config.plan import resolve
 from assimbench.io.provenance import config_hash, content_hash
+from assimbench.report.pooling import FailingLevel
 from assimbench.tuning.search import SCALES, Axis, Evaluation
 
 OPTIONS = {"study": str, "objective": str, "points": int, "passes": int, "tolerance": float,
@@ -172,6 +173,20 @@ def pass_cost(point: Point, options: Options, axes: tuple) -> int:
     return int(point.config.cycles) * options.points ** len(axes) * int(point.config.replicates)
 
 
+def lost_lanes(result, cfg) -> np.ndarray:
+    """(lanes,) True where a replicate blew up or its time-mean analysis RMSE is above the failing
+    level: the observation error, as the report counts it (:class:`FailingLevel`); a filter that
+    does not beat its observations has lost the truth even when it has not blown up."""
+    first_bad = np.atleast_2d(result.first_bad_cycle)
+    lost = (first_bad >= 0).any(axis=1)
+    flat = {"observation.transform": cfg.observation.transform, "observation.error_std": cfg.observation.error_std}
+    level, _ = FailingLevel().level(flat)
+    if level is not None and "rmse_analysis" in result.per_replicate:
+        rmse = np.atleast_2d(result.per_replicate["rmse_analysis"])
+        lost |= ~np.all(rmse <= level, axis=1)
+    return lost
+
+
 def evaluator(point: Point, axes: tuple, objective: str):
     """``evaluate(values) -> Evaluation``: one run of the point with the rows of ``values`` as lanes."""
 
@@ -179,7 +194,7 @@ def evaluator(point: Point, axes: tuple, objective: str):
         cfg = with_lanes(point.config, axes, values)
         OmegaConf.update(cfg, "output", None, merge=False)
         result = run_experiment(cfg, keep_series=True)
-        lost = np.atleast_2d(result.first_bad_cycle >= 0).any(axis=1)
+        lost = lost_lanes(result, point.config)
         cost = int(cfg.cycles) * values.shape[0] * int(cfg.replicates)
         return Evaluation(np.asarray(result.series[objective]), int(cfg.burn_in), lost, cost)
 

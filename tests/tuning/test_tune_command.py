@@ -46,6 +46,10 @@ def test_a_study_writes_one_row_per_static_point_with_numeric_columns_and_its_fi
         value, value_low, value_high = (float(row[k]) for k in ("rmse_analysis", "rmse_analysis_low",
                                                                   "rmse_analysis_high"))
         assert value_low < value < value_high
+        # The same settings on fresh seeds: an independent value, and whether they kept the truth.
+        fresh, fresh_low, fresh_high = (float(row[k]) for k in ("fresh_rmse_analysis", "fresh_rmse_analysis_low",
+                                                                  "fresh_rmse_analysis_high"))
+        assert fresh_low < fresh < fresh_high and fresh != value and int(row["fresh_lost_replicates"]) >= 0
         assert int(row["cycles_spent"]) == int(row["passes"]) * 200 * 5 * 2  # cycles x lanes x replicates
     names = [r["point"] for r in _rows(folder / "tuned.csv")]
     for name in names:
@@ -79,6 +83,11 @@ def test_running_the_same_study_again_reads_the_finished_points_back(study, caps
     assert [p.stat().st_mtime_ns for p in records] == stamps
     data = json.loads(records[0].read_text())
     assert data["candidates"] and data["stopped"].split(";")[0] in ("resolved", "tolerance", "passes", "budget")
+    # The same folder with other inputs is refused, never silently overwritten.
+    changed = [a if not a.startswith("cycles=") else "cycles=250" for a in argv]
+    assert command.main(changed) == 2
+    assert "already holds filter.members-6 tuned with other inputs" in capsys.readouterr().err
+    assert [p.stat().st_mtime_ns for p in records] == stamps
 
 
 @pytest.mark.parametrize("arguments, words", [
