@@ -35,7 +35,7 @@ def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--members", type=int, nargs="+", default=[5, 10, 20, 40])
     parser.add_argument("--cycles", type=int, default=600)
-    parser.add_argument("--points", type=int, default=3,
+    parser.add_argument("--points", type=int, default=4,
                         help="values per axis per pass of the LETKF's 2-D search (points^2 lanes)")
     args = parser.parse_args()
     etkf = study("etkf", args.members, ["filter=etkf", "tune.filter.inflation=[1.0,1.3]"], args.cycles)

@@ -208,6 +208,13 @@ def user_config_arguments(argv: list[str], base: str) -> list[str]:
         if not os.path.isdir(folder):
             raise ConfigError(f"{option} {found[CONFIG_OPTIONS[option]]}: no such folder ({folder})")
     package_names = sorted(p[:-5] for p in os.listdir(config_dir()) if p.endswith(".yaml"))
+    for option, folder in folders:
+        # Hydra looks in the user's folder first: a file there named as one of the package's configs
+        # would replace it (and a file that starts from it would then include itself).
+        shadowing = [n for n in package_names if os.path.isfile(os.path.join(folder, n + ".yaml"))]
+        if shadowing:
+            raise ConfigError(f"{option} {found[CONFIG_OPTIONS[option]]}: {shadowing[0]}.yaml there would replace the "
+                              f"package's own {shadowing[0]}.yaml; rename it")
     if "path" in found and "name" not in found:
         raise ConfigError(f"--config-path {found['path']}: name your file with --config-name NAME (NAME.yaml)")
     if name == base and "path" not in found:

@@ -205,7 +205,7 @@ def print_decisions(points: list, compared: list) -> None:
         if p.best is None:
             print(f"{head}: no setting kept every replicate ({len(p.lost)} of {len(p.settings)} lost)")
             continue
-        best = setting_text(p.best, p.tuned_keys) if p.tuned_keys else "its only setting"
+        best = setting_text(p.best, p.tuned_keys) if p.tuned_keys else "(its only setting)"
         print(f"{head}: best {best}, analysis RMSE {with_interval(*p.best.estimate('rmse_analysis'))}")
         if p.runner_up is not None:
             d = p.difference

@@ -96,17 +96,22 @@ def _lane_value(value, lane: int):
 SWITCHED = {"adaptive": ("adaptive_std", "adaptive_min", "adaptive_max")}
 
 
-def settings_line(config: dict) -> str:
-    """The filter's settings in force, in plain words: what is on, and at what value."""
+def settings_line(config: dict, lane_keys=()) -> str:
+    """The filter's settings in force, in plain words: what is on, and at what value (a setting that
+    varies over the lanes is named as such: its values are in the lane table)."""
     node = dict(config.get("filter", {}))
-    hidden = {"name", "members"}
+    laned = [k.split(".", 1)[1] for k in lane_keys if k.startswith("filter.")]
+    hidden = {"name", "members", *laned}
     for switch, keys in SWITCHED.items():
         if not node.get(switch):
             hidden.update(keys)
     shown = [(k, v) for k, v in node.items() if k not in hidden and v not in (0, None, False)]
     if "inflation" in node:
         shown = [("inflation", node["inflation"])] + [(k, v) for k, v in shown if k != "inflation"]
-    return "; ".join(f"{setting_word('filter.' + k)} {value_text(v)}" for k, v in shown) or "none to tune"
+    text = "; ".join(f"{setting_word('filter.' + k)} {value_text(v)}" for k, v in shown)
+    if laned:
+        text += ("; " if text else "") + "by lane: " + ", ".join(setting_word("filter." + k) for k in laned)
+    return text or "none to tune"
 
 
 def network_line(config: dict) -> str:
@@ -115,7 +120,7 @@ def network_line(config: dict) -> str:
     model = config.get("model", {})
     size = model.get("size") or model.get("slow") or 3
     stride = int(net.get("stride", 1))
-    seen = "every variable" if stride == 1 else f"every {stride}th variable ({-(-int(size) // stride)} of {size})"
+    seen = "every variable" if stride == 1 else (f"one variable in {stride} ({-(-int(size) // stride)} of {size})")
     transform = net.get("transform", "identity")
     how = "" if transform == "identity" else f", {transform} of the state"
     return f"{seen}{how} every {net.get('interval'):g} time units, error std {net.get('error_std'):g}"
@@ -153,7 +158,7 @@ def format_summary(result, path, title: str) -> str:
     """The block printed at the end of a run: what ran (settings, network), time means after burn-in
     with 95% intervals, and the reference levels the analysis error should beat."""
     config = result.config
-    head = [title, f"  settings            {settings_line(config)}",
+    head = [title, f"  settings            {settings_line(config, list(result.lanes))}",
             f"  observed            {network_line(config)}"]
     climate = result.attrs.get("climatological_std")
     if result.lanes:
@@ -162,7 +167,7 @@ def format_summary(result, path, title: str) -> str:
         if climate is not None:
             error = config.get("observation", {}).get("error_std")
             lines.append(f"  references          observation error {error:g}, climatology "
-                         f"{_lane_value(climate, 0):.4f} (RMSE of the climatological mean, lane 1)")
+                         f"{_lane_value(climate, 0):.4f} (RMSE of the climatological mean, lane 0)")
         return "\n".join(lines + _footer(result, path))
     s = result.summary
     lines = head + [f"  {'time mean (95%)':<20}{'forecast':>22}{'analysis':>22}"]
@@ -190,13 +195,13 @@ def _lane_rows(result) -> list:
     width = max(12, *(len(k) + 2 for k in keys))
     s = result.summary
     head = "  " + "".join(f"{k:>{width}}" for k in keys)
-    head += f"{'analysis RMSE (95%)':>24}{'analysis spread':>22}{'lost':>7}"
+    head += f"{'analysis RMSE (95%)':>24}{'analysis spread':>22}{'blew up':>9}"
     rows = [head]
     for lane in range(result.lane_count):
         one = {name: float(np.asarray(v)[lane]) for name, v in s.items()}
         lost = int(np.sum(result.first_bad_cycle[lane] >= 0))
         row = "  " + "".join(f"{result.lanes[k][lane]:>{width}g}" for k in keys)
-        rows.append(row + f"{_cell(one, 'rmse_analysis'):>24}{_cell(one, 'spread_analysis')}{lost:>7}")
+        rows.append(row + f"{_cell(one, 'rmse_analysis'):>24}{_cell(one, 'spread_analysis')}{lost:>9}")
     return rows
 
 

@@ -7,6 +7,7 @@ reader sees either the old file, no file, or the complete new one.
 
 import contextlib
 import os
+import tempfile
 
 PARTIAL_SUFFIX = ".partial"
 
@@ -35,11 +36,23 @@ def unwritable(folder: str):
     if not os.path.isdir(existing):
         return f"cannot write to {path}: {existing} is not a folder"
     # W for new entries, X to reach them; access() also answers "no" on a read-only file system.
-    if not os.access(existing, os.W_OK | os.X_OK):
+    if not os.access(existing, os.W_OK | os.X_OK) or not _can_create_in(existing):
         if existing == path:
             return f"cannot write to {path} (read-only folder)"
         return f"cannot create {path}: {existing} is a read-only folder"
     return None
+
+
+def _can_create_in(folder: str) -> bool:
+    """Whether a file can really be made in ``folder``: access() says yes to root everywhere, also on
+    special file systems (/proc, /sys) that refuse new files; a probe made and removed at once."""
+    try:
+        handle, probe = tempfile.mkstemp(prefix=".assimbench-probe-", dir=folder)
+    except OSError:
+        return False
+    os.close(handle)
+    os.remove(probe)
+    return True
 
 
 def publish(path: str) -> str:

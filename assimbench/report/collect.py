@@ -160,7 +160,8 @@ def varied_settings(rows: list) -> list:
         keys.update(row.config)
     varied = []
     for key in sorted(keys):
-        if key.startswith(IGNORED_PREFIXES) or key in ("filter.name", "filter.members", "seed"):
+        # Keys the tables show in columns of their own are never listed again as settings.
+        if key.startswith(IGNORED_PREFIXES) or key in ("filter.name", "filter.members", "seed", "replicates"):
             continue
         values = {repr(row.config.get(key)) for row in rows}
         if len(values) > 1:

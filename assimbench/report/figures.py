@@ -204,15 +204,27 @@ def error_against_setting(points: list, key: str, path: str) -> str:
         if any_lost:
             low, high = ax.get_ylim()
             ax.set_ylim(low, high + (high - low) * (0.06 + 0.05 * any_lost))  # room for the rows of marks
+            # The marks sit in a band of their own above the values: no value ticks there, a rule below.
+            ticks = [t for t in matplotlib.ticker.MaxNLocator(6).tick_values(low, high) if low <= t <= high]
+            ax.set_yticks(ticks, [f"{t:g}" for t in ticks])
+            ax.axhline(high, color=NEUTRAL, lw=0.6)
+            ax.text(1.01, (1.0 + high_fraction(ax, high)) / 2, "lost", transform=ax.transAxes, fontsize=7.5,
+                    va="center", ha="left", color="#444444")
         values = sorted({s.config[key] for p in points for s in p.settings})
         if len(values) <= 10:
             ax.set_xticks(values, [value_text(v) for v in values])
         ax.set_xlabel(f"{setting_word(key)} (as configured)")
         ax.set_ylabel(f"time-mean analysis RMSE ({STATE_UNITS})")
-        note = "; x at the top: lost (a replicate failed)" if any_lost else ""
-        ax.set_title(f"Analysis error against {setting_word(key)} (95% intervals; star: best{note})", fontsize=9)
+        note = "; x above the rule: lost, a replicate failed" if any_lost else ""
+        ax.set_title(f"Analysis error against {setting_word(key)}\n(95% intervals; star: best{note})", fontsize=9)
         ax.legend(fontsize=8)
         return _save(fig, path)
+
+
+def high_fraction(ax, value: float) -> float:
+    """Where ``value`` sits on the y axis, as a fraction of its height."""
+    low, high = ax.get_ylim()
+    return (value - low) / (high - low)
 
 
 def heat_map(settings: list, x_key: str, y_key: str, path: str, title: str, best=None) -> str:
@@ -249,7 +261,7 @@ def heat_map(settings: list, x_key: str, y_key: str, path: str, title: str, best
         ax.set_yticks(range(len(ys)), [value_text(v) for v in ys])
         ax.set_xlabel(setting_word(x_key))
         ax.set_ylabel(setting_word(y_key))
-        ax.set_title(title, fontsize=9)
+        ax.set_title(title + ("\n(outlined: the best kept setting)" if best is not None else ""), fontsize=9)
         bar = fig.colorbar(image, ax=ax)
         bar.set_label(f"time-mean analysis RMSE ({STATE_UNITS})")
         return _save(fig, path)

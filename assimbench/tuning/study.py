@@ -129,8 +129,10 @@ def split_arguments(argv: list) -> tuple:
     if not axes:
         raise ConfigError("nothing to tune: give tune.<setting>=[low,high], e.g. 'tune.filter.inflation=[1.0,1.3]'")
     options = Options(**given)
-    if options.points < 3:
-        raise ConfigError(f"points={options.points} is not allowed: an integer >= 3 (values per axis per pass)")
+    if options.points < 4:
+        # A later pass spans one step either side of the minimiser, so its step is 2 / (points - 1) of
+        # the last one: 3 points would never refine.
+        raise ConfigError(f"points={options.points} is not allowed: an integer >= 4 (values per axis per pass)")
     if options.passes < 1:
         raise ConfigError(f"passes={options.passes} is not allowed: an integer >= 1")
     if not 0 < options.tolerance < 1:

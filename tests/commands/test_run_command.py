@@ -465,3 +465,22 @@ def test_a_sweep_job_folder_is_named_as_hydra_will_name_it(tmp_path, monkeypatch
     assert [str(h.sweep.subdir) for _, h in jobs] == [
         "filter.members-5__lanes.filter.inflation-1.0_1.02", "filter.members-6__lanes.filter.inflation-1.0_1.02"]
     assert list(tmp_path.iterdir()) == []
+
+
+def test_a_file_named_as_the_packages_config_in_the_users_folder_is_refused(tmp_path, monkeypatch, capsys):
+    """Hydra reads the user's folder first: a config.yaml there would replace the package's (and one
+    that starts from config would include itself)."""
+    _study(tmp_path, RING_STUDY)
+    (tmp_path / "studies" / "config.yaml").write_text("defaults:\n  - config\n  - _self_\n")
+    monkeypatch.chdir(tmp_path)
+    _refused_in_one_line(cli.main(["--config-path", "studies", "--config-name", "ring"]),
+                         ["config.yaml there would replace the package's own config.yaml"], capsys)
+
+
+@pytest.mark.skipif(not os.path.isdir("/proc/self"), reason="no /proc file system here")
+def test_a_folder_that_refuses_new_files_is_refused_before_the_run_even_for_root(tmp_path, monkeypatch, capsys):
+    """/proc accepts no new files although access() says yes to root: the check makes a probe file."""
+    monkeypatch.chdir(tmp_path)
+    _refused_in_one_line(cli.main(SMALL + ["output=/proc/assimbench/r.h5"]), ["cannot create /proc/assimbench"],
+                         capsys)
+    assert list(tmp_path.iterdir()) == []
