@@ -231,7 +231,7 @@ def _level(text: str) -> float:
 
 
 def main(argv=None) -> int:
-    parser = argparse.ArgumentParser(prog=COMMAND, description=__doc__.splitlines()[0])
+    parser = argparse.ArgumentParser(prog=COMMAND, description=__doc__.split("\n\n")[1].replace("\n", " ").replace("``", ""))
     parser.add_argument("paths", nargs="+", help="result files (.h5) and folders to search for them")
     parser.add_argument("--out", default="report", help="folder for the tables and figures (default: report)")
     level = parser.add_mutually_exclusive_group()

@@ -32,7 +32,17 @@ from assimbench.tuning.search import search
 from assimbench.tuning.study import Point, check_point, evaluator, pass_cost, split_arguments, study_folder
 
 COMMAND = "assimbench-tune"
-USAGE = __doc__.split("\n\n")[0] + "\n\n" + __doc__.split("\n\n")[1]
+USAGE = (__doc__.split("\n\n")[0] + "\n\n" + __doc__.split("\n\n")[1] + """
+
+The study's own keys (defaults in brackets):
+  tune.<setting>=[low,high] or [low,high,log]   a traced setting to tune (any lane key)
+  study=PATH [tuning]        the folder of the study's files
+  objective=NAME [rmse_analysis]   the per-cycle series whose time mean is minimised
+  points=N [7]               values per axis per pass (>= 4)
+  passes=N [8]               the most passes per point
+  tolerance=F [0.005]        stop when the step or the range is below F x the bounds
+  budget_cycles=N            run-cycles (cycles x lanes x replicates) for the whole study
+  budget_seconds=T           wall time for the whole study""").replace("``", "")
 
 
 def static_points(rest: list) -> list:

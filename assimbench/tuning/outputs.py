@@ -210,7 +210,8 @@ def tuned_curve(records: list, path: str) -> str:
             mine = sorted((r for r in decided if r["filter"] == name), key=lambda r: r["members"])
             x = [r["members"] for r in mine]
             mean, low, high = (np.array([r["value"][i] for r in mine]) for i in range(3))
-            ax.plot(x, mean, marker="o", ms=4, color=palette[name], label=filter_word(name))
+            ax.errorbar(x, mean, yerr=np.abs(np.vstack([mean - low, high - mean])), marker="o", ms=4, capsize=3,
+                        color=palette[name], label=filter_word(name))  # bars show even for a single size
             ax.fill_between(x, low, high, color=palette[name], alpha=0.2, lw=0)
         sizes = sorted({r["members"] for r in decided})
         if sizes:
@@ -220,7 +221,7 @@ def tuned_curve(records: list, path: str) -> str:
         objective = metric_word(records[0]["objective"]) if records else "objective"
         ax.set_xlabel("ensemble size (members)")
         ax.set_ylabel(f"tuned time-mean {objective} ({STATE_UNITS})")
-        ax.set_title("Tuned curve (bands: 95% intervals)")
+        ax.set_title("Tuned curve (bars and bands: 95% intervals)")
         if filters:
             ax.legend(fontsize=8)
         return _save(fig, path)
