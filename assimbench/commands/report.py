@@ -22,7 +22,7 @@ import numpy as np
 from assimbench.io.atomic import unwritable, write_text
 from assimbench.report import figures
 from assimbench.report.collect import collect, experiment_differences
-from assimbench.report.decide import comparisons, decide, setting_text
+from assimbench.report.decide import comparisons, decide, distinguishable, setting_text
 from assimbench.report.pooling import FailingLevel, pool
 from assimbench.report.tables import (
     COMPARISON_COLUMNS,
@@ -68,7 +68,7 @@ def decision_lines(points: list) -> list:
             d = p.difference
             cells += [setting_text(p.runner_up, p.tuned_keys), f"{p.runner_up.value('rmse_analysis'):.4f}",
                       interval_text(d["mean"], d["low"], d["high"]) if d else "not paired",
-                      "yes" if d and (d["low"] > 0 or d["high"] < 0) else "no"]
+                      "yes" if distinguishable(d) else "no"]
         else:
             cells += ["", "", "", ""]
         lines.append("| " + " | ".join(cells + [lost]) + " |")
@@ -210,7 +210,7 @@ def print_decisions(points: list, compared: list) -> None:
         if p.runner_up is not None:
             d = p.difference
             diff = interval_text(d["mean"], d["low"], d["high"]) if d else "not paired"
-            verdict = "distinguishable" if d and (d["low"] > 0 or d["high"] < 0) else "not distinguishable"
+            verdict = "distinguishable" if distinguishable(d) else "not distinguishable"
             print(f"    runner-up {setting_text(p.runner_up, p.tuned_keys)}, "
                   f"{p.runner_up.value('rmse_analysis'):.4f}; best minus runner-up {diff}: {verdict}")
         if p.lost:

@@ -18,18 +18,24 @@ import math
 import os
 import sys
 
-import numpy as np
 from omegaconf import OmegaConf
 
 from assimbench.api import run_experiment
 from assimbench.commands._hydra import compose_jobs, expand_jobs, fail, job_folder, prepare_hydra, user_config_arguments
 from assimbench.config.checks import ConfigError
 from assimbench.io.atomic import unwritable
-from assimbench.report.pooling import FailingLevel
 from assimbench.report.words import setting_word
 from assimbench.tuning import outputs
 from assimbench.tuning.search import search
-from assimbench.tuning.study import Point, check_point, evaluator, pass_cost, split_arguments, study_folder
+from assimbench.tuning.study import (
+    Point,
+    check_point,
+    evaluator,
+    lost_replicates,
+    pass_cost,
+    split_arguments,
+    study_folder,
+)
 
 COMMAND = "assimbench-tune"
 USAGE = (__doc__.split("\n\n")[0] + "\n\n" + __doc__.split("\n\n")[1] + """
@@ -121,7 +127,7 @@ def confirm(point, tuned: dict, objective: str, seed_shift: int = 0) -> tuple:
     """((mean, low, high) of ``objective``, lost replicates) from one standalone run at the tuned
     settings; with ``seed_shift`` 0 the search's seeds (exactly what the point's written config gives
     with the main command), else the seed moved by it: fresh truths and observations. A replicate is
-    lost as in the search (:func:`lost_lanes`)."""
+    lost as in the search (:func:`lost_replicates`)."""
     cfg = copy.deepcopy(point.config)
     for key, value in tuned.items():
         OmegaConf.update(cfg, key, float(value), merge=False)
@@ -130,12 +136,7 @@ def confirm(point, tuned: dict, objective: str, seed_shift: int = 0) -> tuple:
     result = run_experiment(cfg, keep_series=False)
     summary = result.summary
     value = (summary[objective], summary.get(objective + "_low", math.nan), summary.get(objective + "_high", math.nan))
-    lost = int(np.sum(np.atleast_1d(result.first_bad_cycle) >= 0))
-    flat = {"observation.transform": cfg.observation.transform, "observation.error_std": cfg.observation.error_std}
-    level, _ = FailingLevel().level(flat)
-    if level is not None and "rmse_analysis" in result.per_replicate:
-        above = ~(np.asarray(result.per_replicate["rmse_analysis"]) <= level)
-        lost = int(np.sum(above | (np.atleast_1d(result.first_bad_cycle) >= 0)))
+    lost = int(lost_replicates(result, cfg).sum())
     if not math.isfinite(value[0]):
         lost = max(lost, 1)
     return value, lost

@@ -55,7 +55,8 @@ TIME_UNITS = "model time units"
 MAX_PANELS = 8
 
 
-def _save(fig, path: str) -> str:
+def save_png(fig, path: str) -> str:
+    """Write ``fig`` as a PNG through a temporary name; returns ``path``."""
     with atomic_file(path) as partial:
         fig.savefig(partial, format="png", bbox_inches="tight")
     return path
@@ -159,7 +160,7 @@ def errors_over_cycles(points: list, path: str, window: int = 20) -> str:
         fig.supylabel(f"analysis RMSE and spread ({STATE_UNITS})", fontsize=9)
         fig.suptitle(f"Analysis error over time at the best settings ({window}-cycle running means)",
                      fontsize=10, fontweight="bold")
-        return _save(fig, path)
+        return save_png(fig, path)
 
 
 def _profile(point, key: str) -> list:
@@ -218,7 +219,7 @@ def error_against_setting(points: list, key: str, path: str) -> str:
         note = "; x above the rule: lost, a replicate failed" if any_lost else ""
         ax.set_title(f"Analysis error against {setting_word(key)}\n(95% intervals; star: best{note})", fontsize=9)
         ax.legend(fontsize=8)
-        return _save(fig, path)
+        return save_png(fig, path)
 
 
 def high_fraction(ax, value: float) -> float:
@@ -264,7 +265,7 @@ def heat_map(settings: list, x_key: str, y_key: str, path: str, title: str, best
         ax.set_title(title + ("\n(outlined: the best kept setting)" if best is not None else ""), fontsize=9)
         bar = fig.colorbar(image, ax=ax)
         bar.set_label(f"time-mean analysis RMSE ({STATE_UNITS})")
-        return _save(fig, path)
+        return save_png(fig, path)
 
 
 def tuned_curve(points: list, path: str) -> str:
@@ -292,7 +293,7 @@ def tuned_curve(points: list, path: str) -> str:
         ax.set_ylabel(f"best time-mean analysis RMSE ({STATE_UNITS})")
         ax.set_title("Best-tuned error against ensemble size (95% intervals)")
         ax.legend(fontsize=8)
-        return _save(fig, path)
+        return save_png(fig, path)
 
 
 def rank_histograms(points: list, path: str, name: str = "rank_truth_forecast") -> str:
@@ -314,7 +315,7 @@ def rank_histograms(points: list, path: str, name: str = "rank_truth_forecast") 
         axes[0][0].set_ylabel("relative frequency")
         fig.suptitle("Rank histograms at the best settings, after burn-in (dashed: flat)", fontsize=10,
                      fontweight="bold")
-        return _save(fig, path)
+        return save_png(fig, path)
 
 
 def spread_against_error(points: list, path: str) -> str:
@@ -357,4 +358,4 @@ def spread_against_error(points: list, path: str) -> str:
             ax.legend(fontsize=8, loc="upper left")
         else:
             ax.text(0.5, 0.5, "every setting lost a replicate", ha="center", va="center", transform=ax.transAxes)
-        return _save(fig, path)
+        return save_png(fig, path)

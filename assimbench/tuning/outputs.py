@@ -24,8 +24,8 @@ import yaml
 from matplotlib.figure import Figure
 from omegaconf import OmegaConf
 
-from assimbench.io.atomic import atomic_file, write_text
-from assimbench.report.figures import OKABE_ITO, STATE_UNITS, STYLE, colours
+from assimbench.io.atomic import write_text
+from assimbench.report.figures import OKABE_ITO, STATE_UNITS, STYLE, colours, save_png
 from assimbench.report.tables import to_csv, to_markdown
 from assimbench.report.words import filter_word, metric_word, setting_word, value_text
 from assimbench.tuning.search import Outcome
@@ -126,12 +126,6 @@ def write_config(folder: str, point, best: dict) -> str:
     return write_text(os.path.join(folder, "configs", f"{point.name}.yaml"), tuned_config(point, best))
 
 
-def _save(fig, path: str) -> str:
-    with atomic_file(path) as partial:
-        fig.savefig(partial, format="png", bbox_inches="tight")
-    return path
-
-
 def landscape(data: dict, path: str) -> str:
     """Every candidate of one point: objective against the setting (one axis; colour by pass) or the
     candidates over the first two settings coloured by objective; lost candidates marked x."""
@@ -195,7 +189,7 @@ def landscape(data: dict, path: str) -> str:
                      f"{data['spent']:,} run-cycles; larger dots: later passes)" if len(axes) > 1 else
                      f"Searched: {filter_word(data['filter'])}{members} ({data['passes']} passes, "
                      f"{data['spent']:,} run-cycles)", fontsize=9)
-        return _save(fig, path)
+        return save_png(fig, path)
 
 
 def tuned_curve(records: list, path: str) -> str:
@@ -224,7 +218,7 @@ def tuned_curve(records: list, path: str) -> str:
         ax.set_title("Tuned curve (bars and bands: 95% intervals)")
         if filters:
             ax.legend(fontsize=8)
-        return _save(fig, path)
+        return save_png(fig, path)
 
 
 def summary_line(data: dict) -> str:

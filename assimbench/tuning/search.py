@@ -120,7 +120,6 @@ class Outcome:
     seconds: float
     passes: int
     stopped: str
-    burn_in: int = 0
 
 
 def time_mean(series: np.ndarray, burn_in: int) -> tuple:
@@ -291,7 +290,7 @@ def search(axes: tuple, evaluate, points: int = 7, passes: int = 8, tolerance: f
             minimiser = tuple(float(axis.value(centre[j])) for j, axis in enumerate(axes))
             box, fitted = (low_unit, high_unit), inside
         if report is not None:
-            report(_outcome(axes, candidates, minimiser, box, spent, started, number, "", burn_in), this_pass)
+            report(_outcome(axes, candidates, minimiser, box, spent, started, number, ""), this_pass)
         if minimiser is None:
             stopped = "lost"
             break
@@ -310,7 +309,7 @@ def search(axes: tuple, evaluate, points: int = 7, passes: int = 8, tolerance: f
     if minimiser is not None and np.all(np.isfinite(box[1] - box[0])) and open_sides(
             box[0], box[1], fitted, candidates, tolerance).any():
         stopped += "; range reaches the edge of the searched region"
-    return _outcome(axes, candidates, minimiser, box, spent, started, number, stopped, burn_in)
+    return _outcome(axes, candidates, minimiser, box, spent, started, number, stopped)
 
 
 def _within(candidates: list, window: tuple) -> list:
@@ -319,7 +318,7 @@ def _within(candidates: list, window: tuple) -> list:
     return [c for c in candidates if not c.lost and np.all((np.array(c.unit) >= low) & (np.array(c.unit) <= high))]
 
 
-def _outcome(axes, candidates, minimiser, box, spent, started, number, stopped, burn_in) -> Outcome:
+def _outcome(axes, candidates, minimiser, box, spent, started, number, stopped) -> Outcome:
     ranges = {}
     if minimiser is not None:
         for j, axis in enumerate(axes):
@@ -327,5 +326,4 @@ def _outcome(axes, candidates, minimiser, box, spent, started, number, stopped, 
                 ranges[axis.key] = (float("nan"), float("nan"))
             else:
                 ranges[axis.key] = (float(axis.value(box[0][j])), float(axis.value(box[1][j])))
-    return Outcome(tuple(axes), candidates, minimiser, ranges, spent, time.perf_counter() - started, number, stopped,
-                   burn_in)
+    return Outcome(tuple(axes), candidates, minimiser, ranges, spent, time.perf_counter() - started, number, stopped)

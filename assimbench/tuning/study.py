@@ -175,18 +175,22 @@ def pass_cost(point: Point, options: Options, axes: tuple) -> int:
     return int(point.config.cycles) * options.points ** len(axes) * int(point.config.replicates)
 
 
-def lost_lanes(result, cfg) -> np.ndarray:
-    """(lanes,) True where a replicate blew up or its time-mean analysis RMSE is above the failing
-    level: the observation error, as the report counts it (:class:`FailingLevel`); a filter that
-    does not beat its observations has lost the truth even when it has not blown up."""
-    first_bad = np.atleast_2d(result.first_bad_cycle)
-    lost = (first_bad >= 0).any(axis=1)
+def lost_replicates(result, cfg) -> np.ndarray:
+    """(lanes, replicates) True where a replicate blew up or its time-mean analysis RMSE is above the
+    failing level: the observation error, as the report counts it (:class:`FailingLevel`); a filter
+    that does not beat its observations has lost the truth even when it has not blown up. A result
+    without lanes is one lane."""
+    lost = np.atleast_2d(result.first_bad_cycle) >= 0
     flat = {"observation.transform": cfg.observation.transform, "observation.error_std": cfg.observation.error_std}
     level, _ = FailingLevel().level(flat)
     if level is not None and "rmse_analysis" in result.per_replicate:
-        rmse = np.atleast_2d(result.per_replicate["rmse_analysis"])
-        lost |= ~np.all(rmse <= level, axis=1)
+        lost |= ~(np.atleast_2d(result.per_replicate["rmse_analysis"]) <= level)
     return lost
+
+
+def lost_lanes(result, cfg) -> np.ndarray:
+    """(lanes,) True where any replicate is lost (:func:`lost_replicates`)."""
+    return lost_replicates(result, cfg).any(axis=1)
 
 
 def evaluator(point: Point, axes: tuple, objective: str):
