@@ -18,6 +18,7 @@ import math
 import os
 import sys
 
+import numpy as np
 from omegaconf import OmegaConf
 
 from assimbench.api import run_experiment
@@ -26,7 +27,7 @@ from assimbench.config.checks import ConfigError
 from assimbench.io.atomic import unwritable
 from assimbench.report.words import setting_word
 from assimbench.tuning import outputs
-from assimbench.tuning.search import search
+from assimbench.tuning.search import retreat_path, search, time_mean
 from assimbench.tuning.study import (
     Point,
     check_point,
@@ -124,10 +125,10 @@ def progress(point):
 
 
 def confirm(point, tuned: dict, objective: str, seed_shift: int = 0) -> tuple:
-    """((mean, low, high) of ``objective``, lost replicates) from one standalone run at the tuned
-    settings; with ``seed_shift`` 0 the search's seeds (exactly what the point's written config gives
-    with the main command), else the seed moved by it: fresh truths and observations. A replicate is
-    lost as in the search (:func:`lost_replicates`)."""
+    """((mean, low, high) of ``objective``, lost replicates, run-cycles) from one standalone run at the
+    tuned settings; with ``seed_shift`` 0 the search's seeds (exactly what the point's written config
+    gives with the main command), else the seed moved by it: fresh truths and observations. A
+    replicate is lost as in the search (:func:`lost_replicates`)."""
     cfg = copy.deepcopy(point.config)
     for key, value in tuned.items():
         OmegaConf.update(cfg, key, float(value), merge=False)
@@ -139,36 +140,95 @@ def confirm(point, tuned: dict, objective: str, seed_shift: int = 0) -> tuple:
     lost = int(lost_replicates(result, cfg).sum())
     if not math.isfinite(value[0]):
         lost = max(lost, 1)
-    return value, lost
+    return value, lost, int(cfg.cycles) * int(cfg.replicates)
 
 
-def tuned_run(point, outcome, objective: str) -> tuple:
-    """(outcome, the tuned run's value or None, the check on fresh seeds or None).
+def retreat(point, outcome, start: tuple, options) -> tuple:
+    """(steps moved or None, settings, run-cycles): on the path away from the lost region
+    (:func:`retreat_path`, ``points`` settings, so a one-setting study reuses the search's compiled
+    program), the setting of lowest error (the mean of its time means on the search's seeds and on
+    fresh seeds) among those that keep every replicate on both; steps is None when no setting on
+    the path does (or nothing was lost to move away from)."""
+    path = retreat_path(outcome, start, options.points)
+    if len(path) < 2:
+        return None, start, 0
+    kept, error, cost = np.ones(len(path), dtype=bool), np.zeros(len(path)), 0
+    for shift in (0, 1):
+        evaluation = evaluator(point, outcome.axes, options.objective, seed_shift=shift)(path)
+        kept &= ~np.asarray(evaluation.lost, dtype=bool)
+        for lane in np.flatnonzero(kept):
+            error[lane] += time_mean(np.asarray(evaluation.series[lane], float), evaluation.burn_in)[0] / 2
+        cost += evaluation.cost
+    kept[0] = False  # the start is the setting that failed
+    if not kept.any():
+        return None, start, cost
+    steps = int(np.argmin(np.where(kept, error, np.inf)))
+    return steps, tuple(float(v) for v in path[steps]), cost
 
-    The tuned run is the run at the fitted minimiser with the search's seeds; when it loses the truth
-    or is worse than the lowest kept candidate's upper 95% limit (a minimiser fitted next to the edge
-    where the filter diverges, where the error is rough), the lowest kept candidate is taken instead.
-    The check runs the chosen settings again on fresh seeds (the seed + 1): an independent value,
-    free of the selection's optimism, and a warning when the setting loses the truth there."""
+
+def _settings(keys, values) -> str:
+    return ", ".join(f"{setting_word(k)} {v:.5g}" for k, v in zip(keys, values))
+
+
+def tuned_run(point, outcome, options) -> dict:
+    """The tuned settings and their checks: ``outcome`` (its minimiser the tuned settings), ``value``
+    of the tuned run or None, ``fresh`` ((mean, low, high), lost replicates) or None, ``fitted`` (the
+    search's minimiser), ``moved`` (steps away from the lost region) and ``checked`` (run-cycles).
+
+    What "tuned" means here: the lowest-error setting the search found that keeps every replicate on
+    the search's seeds and on fresh ones. A chaotic filter's error is often lowest right beside the
+    settings where it loses the truth (too little inflation), and a setting there that kept every
+    replicate in the search may lose one on other truths. So:
+    1. the tuned run is the run at the fitted minimiser with the search's seeds; when it loses the
+       truth or is worse than the lowest kept candidate's upper 95% limit (a fit next to that edge,
+       where the error is rough), the lowest kept candidate is taken instead;
+    2. the chosen settings run again on fresh seeds (the seed + 1): an independent value, free of the
+       selection's optimism;
+    3. when either run lost a replicate, the settings move away from the nearest lost candidate
+       (:func:`retreat_path`) to the setting of lowest error among those that keep every replicate
+       on both seed sets (:func:`retreat`); when none does, they stay and are flagged not robust."""
+    done = {"outcome": outcome, "value": None, "lost": None, "fresh": None, "fitted": outcome.minimiser, "moved": 0,
+            "checked": 0}
     if outcome.minimiser is None:
-        return outcome, None, None
-    keys = [a.key for a in outcome.axes]
-    value, lost = confirm(point, dict(zip(keys, outcome.minimiser)), objective)
+        return done
+    keys, objective = [a.key for a in outcome.axes], options.objective
+    chosen = outcome.minimiser
+    value, lost, checked = confirm(point, dict(zip(keys, chosen)), objective)
     lowest = min((c for c in outcome.candidates if not c.lost), key=lambda c: c.mean)
     if lost or value[0] > lowest.high:
         what = "lost the truth" if lost else f"is worse ({value[0]:.4f}) than the lowest candidate's 95% limit"
         print(f"{point.name}  the run at the fitted minimiser {what}; the lowest kept candidate "
-              f"({', '.join(f'{setting_word(k)} {v:.5g}' for k, v in zip(keys, lowest.values))}) is reported",
-              flush=True)
+              f"({_settings(keys, lowest.values)}) is taken", flush=True)
         outcome = dataclasses.replace(outcome, minimiser=lowest.values,
                                       stopped=f"{outcome.stopped}; fitted minimiser failed, lowest candidate kept")
-        value, _ = confirm(point, dict(zip(keys, lowest.values)), objective)
-    fresh, fresh_lost = confirm(point, dict(zip(keys, outcome.minimiser)), objective, seed_shift=1)
-    print(f"{point.name}  tuned run: {objective} {value[0]:.4f} +- {(value[2] - value[1]) / 2:.4f}; on fresh seeds "
-          f"{fresh[0]:.4f} +- {(fresh[2] - fresh[1]) / 2:.4f}"
-          + (f", LOST {fresh_lost} of {int(point.config.replicates)} replicates: not robust" if fresh_lost else ""),
-          flush=True)
-    return outcome, value, (fresh, fresh_lost)
+        chosen = lowest.values
+        value, lost, cost = confirm(point, dict(zip(keys, chosen)), objective)
+        checked += cost
+    fresh, fresh_lost, cost = confirm(point, dict(zip(keys, chosen)), objective, seed_shift=1)
+    checked += cost
+    moved = 0
+    if lost or fresh_lost:
+        steps, settings, cost = retreat(point, outcome, chosen, options)
+        checked += cost
+        if steps is not None:
+            print(f"{point.name}  {_settings(keys, chosen)} lost a replicate on the search's or fresh seeds; moved "
+                  f"{steps} step{'s' if steps > 1 else ''} away from where the filter loses the truth, to the "
+                  f"lowest error kept on both: "
+                  f"{_settings(keys, settings)}", flush=True)
+            moved, chosen = steps, settings
+            outcome = dataclasses.replace(outcome, minimiser=chosen, stopped=f"{outcome.stopped}; moved {steps} "
+                                          f"step{'s' if steps > 1 else ''} away from the lost region")
+            value, lost, cost = confirm(point, dict(zip(keys, chosen)), objective)
+            fresh, fresh_lost, more = confirm(point, dict(zip(keys, chosen)), objective, seed_shift=1)
+            checked += cost + more
+    replicates = int(point.config.replicates)
+    print(f"{point.name}  tuned run: {objective} {value[0]:.4f} +- {(value[2] - value[1]) / 2:.4f}"
+          + (f", LOST {lost} of {replicates} replicates" if lost else "")
+          + f"; on fresh seeds {fresh[0]:.4f} +- {(fresh[2] - fresh[1]) / 2:.4f}"
+          + (f", LOST {fresh_lost} of {replicates} replicates" if fresh_lost else "")
+          + ("; not robust" if lost or fresh_lost else ""), flush=True)
+    return {**done, "outcome": outcome, "value": value, "lost": lost, "fresh": (fresh, fresh_lost), "moved": moved,
+            "checked": checked}
 
 
 def tune_point(point, axes, options, folder, budget) -> dict:
@@ -181,8 +241,7 @@ def tune_point(point, axes, options, folder, budget) -> dict:
     outcome = search(axes, evaluator(point, axes, options.objective), points=options.points, passes=options.passes,
                      tolerance=options.tolerance, budget_cycles=budget[0], budget_seconds=budget[1],
                      pass_cost=pass_cost(point, options, axes), report=progress(point))
-    outcome, confirmed, fresh = tuned_run(point, outcome, options.objective)
-    data = outputs.record(point, outcome, key, options.objective, confirmed, fresh)
+    data = outputs.record(point, key, options.objective, tuned_run(point, outcome, options))
     if data["best"] is not None:
         outputs.write_config(folder, point, data["best"])
     outputs.landscape(data, os.path.join(folder, f"landscape_{point.name}.png"))

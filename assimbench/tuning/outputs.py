@@ -28,26 +28,32 @@ from assimbench.io.atomic import write_text
 from assimbench.report.figures import OKABE_ITO, STATE_UNITS, STYLE, colours, save_png
 from assimbench.report.tables import to_csv, to_markdown
 from assimbench.report.words import filter_word, metric_word, setting_word, value_text
-from assimbench.tuning.search import Outcome
 
 GROUPS = ("model", "forecast_model", "filter")
 
 
-def record(point, outcome: Outcome, key: str, objective: str, confirmed, fresh=None) -> dict:
-    """A finished point as plain data (JSON). ``confirmed``: (mean, low, high) of the objective of a
-    standalone run at the tuned settings (what the written config gives), or None; ``fresh``:
-    ((mean, low, high), lost replicates) of the same settings on fresh seeds, or None."""
-    tuned = outcome.minimiser
+def record(point, key: str, objective: str, tuned: dict) -> dict:
+    """A finished point as plain data (JSON). ``tuned`` is what :func:`assimbench.commands.tune.tuned_run`
+    returns: the outcome (its minimiser the tuned settings), the value (mean, low, high) of a standalone
+    run at them (what the written config gives) and its lost replicates, the same on fresh seeds, the
+    search's fitted minimiser, the steps moved away from the lost region and the checks' run-cycles."""
+    outcome = tuned["outcome"]
+    names = [a.key for a in outcome.axes]
+    fresh = tuned["fresh"]
     return {
         "key": key, "name": point.name, "overrides": list(point.overrides), "filter": point.filter,
         "members": point.members, "objective": objective,
         "axes": [{"key": a.key, "low": a.low, "high": a.high, "scale": a.scale} for a in outcome.axes],
-        "best": None if tuned is None else dict(zip([a.key for a in outcome.axes], tuned)),
-        "value": None if confirmed is None else list(confirmed),
+        "best": None if outcome.minimiser is None else dict(zip(names, outcome.minimiser)),
+        "fitted": None if tuned["fitted"] is None else dict(zip(names, tuned["fitted"])),
+        "moved": tuned["moved"],
+        "value": None if tuned["value"] is None else list(tuned["value"]),
+        "lost": tuned["lost"],
         "fresh": None if fresh is None else list(fresh[0]),
         "fresh_lost": None if fresh is None else int(fresh[1]),
         "ranges": {k: list(v) for k, v in outcome.ranges.items()},
-        "spent": outcome.spent, "seconds": outcome.seconds, "passes": outcome.passes, "stopped": outcome.stopped,
+        "spent": outcome.spent, "checked": tuned["checked"], "seconds": outcome.seconds, "passes": outcome.passes,
+        "stopped": outcome.stopped,
         "candidates": [{"values": list(c.values), "pass": c.pass_number, "lost": c.lost,
                         "mean": None if c.lost else c.mean, "low": None if c.lost else c.low,
                         "high": None if c.lost else c.high} for c in outcome.candidates],
@@ -76,22 +82,26 @@ def other_record(folder: str, name: str, key: str) -> bool:
 
 
 def table(records: list) -> tuple:
-    """(columns, rows) of tuned.csv: the point's static keys, each tuned setting with the 95% range of
-    its estimate, the objective of a run at the tuned settings with its 95% limits, and what was spent."""
+    """(columns, rows) of tuned.csv: the point's static keys; each tuned setting, the search's fitted
+    minimiser and the 95% range of that minimiser; the steps the tuned setting moved away from the
+    lost region; the objective of a run at the tuned settings with its 95% limits and lost
+    replicates, the same on fresh seeds; and the run-cycles of the search and of the checks."""
     keys = list(dict.fromkeys(a["key"] for r in records for a in r["axes"]))
     objective = records[0]["objective"] if records else "rmse_analysis"
-    columns = ["point", "filter", "members"] + [c for k in keys for c in (k, f"{k}_low", f"{k}_high")]
-    columns += [objective, f"{objective}_low", f"{objective}_high", f"fresh_{objective}", f"fresh_{objective}_low",
-                f"fresh_{objective}_high", "fresh_lost_replicates", "cycles_spent", "passes", "stopped"]
+    columns = ["point", "filter", "members"] + [c for k in keys for c in (k, f"{k}_fitted", f"{k}_low", f"{k}_high")]
+    columns += ["moved_steps", objective, f"{objective}_low", f"{objective}_high", "lost_replicates",
+                f"fresh_{objective}", f"fresh_{objective}_low", f"fresh_{objective}_high", "fresh_lost_replicates",
+                "cycles_spent", "check_cycles", "passes", "stopped"]
     rows = []
     for r in records:
         row = {"point": r["name"], "filter": r["filter"], "members": r["members"], "cycles_spent": r["spent"],
-               "passes": r["passes"], "stopped": r["stopped"]}
+               "check_cycles": r["checked"], "passes": r["passes"], "stopped": r["stopped"]}
         if r["best"] is not None:
             for k in keys:
-                row[k] = r["best"].get(k, "")
+                row[k], row[f"{k}_fitted"] = r["best"].get(k, ""), r["fitted"].get(k, "")
                 row[f"{k}_low"], row[f"{k}_high"] = r["ranges"].get(k, ("", ""))
             row[objective], row[f"{objective}_low"], row[f"{objective}_high"] = r["value"]
+            row["moved_steps"], row["lost_replicates"] = r["moved"], r["lost"]
         if r.get("fresh") is not None:
             row[f"fresh_{objective}"], row[f"fresh_{objective}_low"], row[f"fresh_{objective}_high"] = r["fresh"]
             row["fresh_lost_replicates"] = r["fresh_lost"]
@@ -135,7 +145,7 @@ def landscape(data: dict, path: str) -> str:
     kept = [c for c in candidates if not c["lost"]]
     lost = [c for c in candidates if c["lost"]]
     with matplotlib.rc_context(STYLE):
-        fig = Figure(figsize=(6.0, 4.0))
+        fig = Figure(figsize=(6.0, 4.0) if len(axes) == 1 else (6.0, 5.6))
         ax = fig.subplots()
         if len(axes) == 1:
             passes = sorted({c["pass"] for c in candidates})
@@ -150,21 +160,24 @@ def landscape(data: dict, path: str) -> str:
             top = matplotlib.transforms.blended_transform_factory(ax.transData, ax.transAxes)
             if lost:
                 ax.plot([c["values"][0] for c in lost], [0.96] * len(lost), ls="none", marker="x", color="black",
-                        transform=top, label="lost (diverged)")
+                        transform=top, label="lost (diverged, or no\nbetter than the observations)")
             if data["best"] is not None:
                 key = axes[0]["key"]
                 low, high = data["ranges"][key]
                 if math.isfinite(low):
                     ax.axvspan(low, high, color=OKABE_ITO["sky blue"], alpha=0.25, lw=0,
-                               label="tuned value's 95% range")
+                               label="fitted minimiser's 95% range")
+                if data["moved"]:
+                    ax.axvline(data["fitted"][key], color=OKABE_ITO["blue"], ls="--", lw=1,
+                               label="fitted minimiser")
                 ax.plot([data["best"][key]], [data["value"][0]], marker="*", ms=14, color=OKABE_ITO["vermillion"],
-                        markeredgecolor="black", markeredgewidth=0.6, ls="none", label="reported setting (its own run)")
+                        markeredgecolor="black", markeredgewidth=0.6, ls="none", label="tuned setting (its own run;\nmoved from the lost region\nwhen the fitted one lost a replicate)")
             if axes[0]["scale"] == "log":
                 ax.set_xscale("log")
                 ax.xaxis.set_major_formatter(matplotlib.ticker.FormatStrFormatter("%g"))
             ax.set_xlabel(f"{setting_word(axes[0]['key'])} (as configured)")
             ax.set_ylabel(f"time-mean {objective} ({STATE_UNITS}), 95% bars")
-            ax.legend(fontsize=7.5)
+            ax.legend(fontsize=7.5, loc="upper left", bbox_to_anchor=(1.02, 1.0))  # beside: never over the points
         else:
             x = [c["values"][0] for c in kept]
             y = [c["values"][1] for c in kept]
@@ -172,7 +185,10 @@ def landscape(data: dict, path: str) -> str:
                                s=[14 + 6 * c["pass"] for c in kept], edgecolors="none")
             if lost:
                 ax.plot([c["values"][0] for c in lost], [c["values"][1] for c in lost], ls="none", marker="x",
-                        color="black", label="lost (diverged)")
+                        color="black", label="lost (diverged, or no better than the observations)")
+            if data["best"] is not None and data["moved"]:
+                ax.plot([data["fitted"][axes[0]["key"]]], [data["fitted"][axes[1]["key"]]], marker="P", ms=9,
+                        ls="none", color=OKABE_ITO["blue"], label="fitted minimiser")
             if data["best"] is not None:
                 ax.plot([data["best"][axes[0]["key"]]], [data["best"][axes[1]["key"]]], marker="*", ms=14, ls="none",
                         color=OKABE_ITO["vermillion"], markeredgecolor="black", markeredgewidth=0.6, label="tuned")
@@ -183,7 +199,7 @@ def landscape(data: dict, path: str) -> str:
             ax.set_ylabel(setting_word(axes[1]["key"]))
             bar = fig.colorbar(image, ax=ax)
             bar.set_label(f"time-mean {objective} ({STATE_UNITS})")
-            ax.legend(fontsize=7.5)
+            ax.legend(fontsize=7.5, loc="upper left", bbox_to_anchor=(0.0, -0.15))  # below: never over the points
         members = f", {data['members']} members" if data["members"] else ""
         ax.set_title(f"Searched: {filter_word(data['filter'])}{members} ({data['passes']} passes, "
                      f"{data['spent']:,} run-cycles; larger dots: later passes)" if len(axes) > 1 else
@@ -232,11 +248,17 @@ def summary_line(data: dict) -> str:
                          if math.isfinite(data["ranges"][k][0]) else f"{setting_word(k)} {v:.4g} [range unknown]"
                          for k, v in data["best"].items())
     fresh = ""
+    if data["moved"]:
+        steps = f"{data['moved']} step{'s' if data['moved'] > 1 else ''}"
+        settings += (f" (moved {steps} away from the lost region; fitted minimiser "
+                     + ", ".join(f"{v:.4g}" for v in data["fitted"].values()) + ")")
     if data.get("fresh") is not None:
         f_mean, f_low, f_high = data["fresh"]
         fresh = f"; fresh seeds {f_mean:.4f} +- {(f_high - f_low) / 2:.4f}"
-        if data["fresh_lost"]:
-            fresh += f", LOST {data['fresh_lost']} replicate{'s' if data['fresh_lost'] > 1 else ''}: NOT ROBUST"
+        lost = [f"{n} {where}" for n, where in ((data["lost"], "on the search's seeds"),
+                                                  (data["fresh_lost"], "on fresh seeds")) if n]
+        if lost:
+            fresh += f", LOST {' and '.join(lost)} (replicates): NOT ROBUST"
     passes = f"{data['passes']} pass{'es' if data['passes'] != 1 else ''}"
     return (f"{data['name']}: {settings}; {metric_word(data['objective'])} {mean:.4f} +- {half:.4f}{fresh} "
             f"({passes}, {data['spent']:,} run-cycles, stopped: {data['stopped']})")

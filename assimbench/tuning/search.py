@@ -79,16 +79,25 @@ class Axis:
             return np.exp(np.log(self.low) + unit * (np.log(self.high) - np.log(self.low)))
         return self.low + unit * (self.high - self.low)
 
+    def unit(self, value) -> np.ndarray:
+        """The inverse of :meth:`value`: positions in [0, 1] of setting values."""
+        value = np.asarray(value, float)
+        if self.scale == "log":
+            return (np.log(value) - np.log(self.low)) / (np.log(self.high) - np.log(self.low))
+        return (value - self.low) / (self.high - self.low)
+
 
 @dataclass
 class Evaluation:
     """What one pass returns: the per-cycle objective series (lanes, replicates, cycles), the burn-in,
-    which lanes were lost (lanes,), and the run-cycles spent."""
+    which lanes were lost (lanes,), the run-cycles spent, and (when known) how many replicates each
+    lane lost (lanes,)."""
 
     series: np.ndarray
     burn_in: int
     lost: np.ndarray
     cost: int
+    lost_count: np.ndarray | None = None
 
 
 @dataclass
@@ -109,8 +118,8 @@ class Candidate:
 @dataclass
 class Outcome:
     """The result of a search: every candidate, the estimated minimiser (values per axis; None when
-    every candidate was lost), its uncertainty per axis (key -> (low, high)), what was spent, and
-    why it stopped."""
+    every candidate was lost), its uncertainty per axis (key -> (low, high)), what was spent, why it
+    stopped, and the last pass's grid step (unit positions)."""
 
     axes: tuple
     candidates: list
@@ -120,6 +129,15 @@ class Outcome:
     seconds: float
     passes: int
     stopped: str
+    step: float = 1.0
+
+    def units(self, values) -> np.ndarray:
+        """(k,) unit positions of setting values (one per axis)."""
+        return np.array([float(axis.unit(v)) for axis, v in zip(self.axes, values)])
+
+    def values(self, units: np.ndarray) -> tuple:
+        """Setting values (one per axis) at unit positions (k,)."""
+        return tuple(float(axis.value(u)) for axis, u in zip(self.axes, units))
 
 
 def time_mean(series: np.ndarray, burn_in: int) -> tuple:
@@ -290,7 +308,7 @@ def search(axes: tuple, evaluate, points: int = 7, passes: int = 8, tolerance: f
             minimiser = tuple(float(axis.value(centre[j])) for j, axis in enumerate(axes))
             box, fitted = (low_unit, high_unit), inside
         if report is not None:
-            report(_outcome(axes, candidates, minimiser, box, spent, started, number, ""), this_pass)
+            report(_outcome(axes, candidates, minimiser, box, spent, started, number, "", step), this_pass)
         if minimiser is None:
             stopped = "lost"
             break
@@ -309,7 +327,7 @@ def search(axes: tuple, evaluate, points: int = 7, passes: int = 8, tolerance: f
     if minimiser is not None and np.all(np.isfinite(box[1] - box[0])) and open_sides(
             box[0], box[1], fitted, candidates, tolerance).any():
         stopped += "; range reaches the edge of the searched region"
-    return _outcome(axes, candidates, minimiser, box, spent, started, number, stopped)
+    return _outcome(axes, candidates, minimiser, box, spent, started, number, stopped, step)
 
 
 def _within(candidates: list, window: tuple) -> list:
@@ -318,7 +336,7 @@ def _within(candidates: list, window: tuple) -> list:
     return [c for c in candidates if not c.lost and np.all((np.array(c.unit) >= low) & (np.array(c.unit) <= high))]
 
 
-def _outcome(axes, candidates, minimiser, box, spent, started, number, stopped) -> Outcome:
+def _outcome(axes, candidates, minimiser, box, spent, started, number, stopped, step) -> Outcome:
     ranges = {}
     if minimiser is not None:
         for j, axis in enumerate(axes):
@@ -326,4 +344,30 @@ def _outcome(axes, candidates, minimiser, box, spent, started, number, stopped) 
                 ranges[axis.key] = (float("nan"), float("nan"))
             else:
                 ranges[axis.key] = (float(axis.value(box[0][j])), float(axis.value(box[1][j])))
-    return Outcome(tuple(axes), candidates, minimiser, ranges, spent, time.perf_counter() - started, number, stopped)
+    return Outcome(tuple(axes), candidates, minimiser, ranges, spent, time.perf_counter() - started, number, stopped,
+                   step)
+
+
+def retreat_path(outcome: Outcome, start: tuple, count: int) -> np.ndarray:
+    """(m, k) setting values, m <= count: ``start`` and then settings ever further from the nearest
+    lost candidate, the way out of the region where the filter loses the truth; only ``start`` when
+    nothing was lost. The distances from ``start`` are s, 3s, 7s, ... (2^i - 1) s: the first step
+    is the width of the minimiser's 95% range (settings the search could not tell apart by their
+    error), never less than the last pass's grid step, and doubling steps reach far with few
+    settings while the first safe one found lies at most twice as far out as the nearest safe
+    distance on the path's scale. Positions are kept inside the bounds (a path that reaches a bound
+    stops there)."""
+    origin = outcome.units(start)
+    lost = np.array([c.unit for c in outcome.candidates if c.lost])
+    if not len(lost):
+        return np.array([start])
+    nearest = lost[np.argmin(np.linalg.norm(lost - origin, axis=1))]
+    direction = origin - nearest
+    direction /= np.linalg.norm(direction) or 1.0
+    width = max((float(axis.unit(high) - axis.unit(low)) for axis, (low, high) in
+                 zip(outcome.axes, outcome.ranges.values()) if math.isfinite(low)), default=0.0)
+    step = max(width, outcome.step)
+    distance = step * (2.0 ** np.arange(count) - 1)
+    units = np.clip(origin[None, :] + distance[:, None] * direction[None, :], 0.0, 1.0)
+    distinct = [0] + [i for i in range(1, count) if np.any(np.abs(units[i] - units[i - 1]) > 1e-12)]
+    return np.array([outcome.values(units[i]) for i in distinct])

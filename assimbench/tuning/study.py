@@ -188,21 +188,19 @@ def lost_replicates(result, cfg) -> np.ndarray:
     return lost
 
 
-def lost_lanes(result, cfg) -> np.ndarray:
-    """(lanes,) True where any replicate is lost (:func:`lost_replicates`)."""
-    return lost_replicates(result, cfg).any(axis=1)
-
-
-def evaluator(point: Point, axes: tuple, objective: str):
-    """``evaluate(values) -> Evaluation``: one run of the point with the rows of ``values`` as lanes."""
+def evaluator(point: Point, axes: tuple, objective: str, seed_shift: int = 0):
+    """``evaluate(values) -> Evaluation``: one run of the point with the rows of ``values`` as lanes;
+    with ``seed_shift``, on the seed moved by it (fresh truths and observations)."""
 
     def evaluate(values: np.ndarray) -> Evaluation:
         cfg = with_lanes(point.config, axes, values)
         OmegaConf.update(cfg, "output", None, merge=False)
+        OmegaConf.update(cfg, "seed", int(cfg.seed) + seed_shift, merge=False)
         result = run_experiment(cfg, keep_series=True)
-        lost = lost_lanes(result, point.config)
+        lost = lost_replicates(result, point.config)
         cost = int(cfg.cycles) * values.shape[0] * int(cfg.replicates)
-        return Evaluation(np.asarray(result.series[objective]), int(cfg.burn_in), lost, cost)
+        return Evaluation(np.asarray(result.series[objective]), int(cfg.burn_in), lost.any(axis=1), cost,
+                          lost.sum(axis=1))
 
     return evaluate
 

@@ -5,7 +5,7 @@ candidate, and per-cycle noise), so every property of the search is checked in m
 import numpy as np
 import pytest
 
-from assimbench.tuning.search import Axis, Evaluation, fit_minimiser, search
+from assimbench.tuning.search import Axis, Evaluation, fit_minimiser, retreat_path, search
 
 REPLICATES, CYCLES, BURN_IN = 2, 400, 50
 
@@ -93,3 +93,36 @@ def test_a_minimum_on_the_edge_of_the_kept_region_is_found_with_a_one_sided_rang
     means = 0.2 + 0.3 * units[:, 0] + 0.1 * units[:, 0] ** 2 + 1e-4 * np.array([1, -1, 1, -1, 1])
     centre, low, high = fit_minimiser(units, means, np.inf)
     assert centre[0] == pytest.approx(0.2) and low[0] == pytest.approx(0.2) and high[0] < 0.3
+
+
+def test_the_way_out_of_the_lost_region_steps_away_from_the_nearest_lost_candidate():
+    """From the minimiser found beside the lost region (inflation below 1.06), the path goes up in
+    inflation, in steps that double from the minimiser's 95% range (never less than the last grid
+    step), and stops at the bound; with nothing lost there is nowhere to move away from."""
+    axis = Axis("filter.inflation", 1.0, 1.3)
+    outcome = search((axis,), landscape(lambda v: 0.2 + 3.0 * (v[:, 0] - 1.0) ** 2,
+                                        lost=lambda v: v[:, 0] < 1.06))
+    start = outcome.minimiser
+    path = retreat_path(outcome, start, 6)[:, 0]
+    low, high = outcome.ranges["filter.inflation"]
+    step = max(high - low, outcome.step * 0.3)
+    assert path[0] == start[0] and np.allclose(np.diff(path), step * 2.0 ** np.arange(5))
+    near_bound = retreat_path(outcome, (1.3 - step / 2,), 6)[:, 0]
+    assert near_bound[-1] == pytest.approx(1.3) and len(near_bound) == 2
+    kept = search((axis,), landscape(lambda v: 0.2 + 3.0 * (v[:, 0] - 1.1) ** 2))
+    assert retreat_path(kept, kept.minimiser, 6).shape == (1, 1)
+
+
+def test_the_way_out_on_two_settings_points_from_the_lost_candidate_to_the_start():
+    axes = (Axis("filter.inflation", 1.0, 1.3), Axis("filter.radius", 0.1, 10.0, "log"))
+    outcome = search(axes, landscape(lambda v: 0.2 + 3.0 * (v[:, 0] - 1.0) ** 2 + 0.05 * np.log(v[:, 1]) ** 2,
+                                     lost=lambda v: v[:, 0] + 0.01 * np.log(v[:, 1]) < 1.05, rough=0.001), points=5)
+    path = np.array([outcome.units(values) for values in retreat_path(outcome, outcome.minimiser, 4)])
+    lost = np.array([c.unit for c in outcome.candidates if c.lost])
+    nearest = lost[np.argmin(np.linalg.norm(lost - path[0], axis=1))]
+    steps = np.diff(path, axis=0)
+    direction = (path[0] - nearest) / np.linalg.norm(path[0] - nearest)
+    inside = np.all((path > 1e-12) & (path < 1 - 1e-12), axis=1)
+    for i in np.flatnonzero(inside[1:]):  # steps not cut by a bound lie along the direction, doubling
+        assert np.allclose(steps[i] / np.linalg.norm(steps[i]), direction)
+        assert i == 0 or np.isclose(np.linalg.norm(steps[i]), 2 * np.linalg.norm(steps[i - 1]))

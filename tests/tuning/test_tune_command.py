@@ -5,8 +5,10 @@ accepted, and the published ETKF card found by tuning instead of by hand."""
 import csv
 import json
 import os
+import types
 
 import h5py
+import numpy as np
 import pytest
 import yaml
 
@@ -16,7 +18,8 @@ from assimbench.commands._hydra import prepare_hydra
 from assimbench.config.catalogue import catalogue
 from assimbench.config.composition import compose_config
 from assimbench.reproduction import load_cards
-from assimbench.tuning.study import Point, check_point, split_arguments
+from assimbench.tuning.search import Axis, Evaluation, retreat_path, search
+from assimbench.tuning.study import DEFAULTS, Options, Point, check_point, split_arguments
 
 SMALL = ["model.size=12", "cycles=200", "burn_in=40", "replicates=2", "points=5", "passes=2"]
 PUBLISHED = os.path.join(os.path.dirname(__file__), "..", "..", "experiments", "published")
@@ -40,9 +43,15 @@ def test_a_study_writes_one_row_per_static_point_with_numeric_columns_and_its_fi
     rows = {r["members"]: r for r in _rows(folder / "tuned.csv")}
     assert set(rows) == {"6", "8"}
     for row in rows.values():
-        inflation, low, high = (float(row[k]) for k in ("filter.inflation", "filter.inflation_low",
-                                                          "filter.inflation_high"))
-        assert 1.0 <= low <= inflation <= high <= 1.4
+        inflation, fitted, low, high = (float(row[k]) for k in ("filter.inflation", "filter.inflation_fitted",
+                                                                  "filter.inflation_low", "filter.inflation_high"))
+        assert 1.0 <= low <= fitted <= high <= 1.4
+        # Tuned is the fitted minimiser, or the lowest candidate when the run there failed, or when
+        # either lost a replicate a setting further from the lost region (here: higher inflation).
+        if int(row["moved_steps"]) > 0:
+            assert inflation > fitted and "moved" in row["stopped"]
+        else:
+            assert inflation == fitted or "lowest candidate kept" in row["stopped"]
         value, value_low, value_high = (float(row[k]) for k in ("rmse_analysis", "rmse_analysis_low",
                                                                   "rmse_analysis_high"))
         assert value_low < value < value_high
@@ -51,6 +60,7 @@ def test_a_study_writes_one_row_per_static_point_with_numeric_columns_and_its_fi
                                                                   "fresh_rmse_analysis_high"))
         assert fresh_low < fresh < fresh_high and fresh != value and int(row["fresh_lost_replicates"]) >= 0
         assert int(row["cycles_spent"]) == int(row["passes"]) * 200 * 5 * 2  # cycles x lanes x replicates
+        assert int(row["check_cycles"]) >= 2 * 200 * 2  # the tuned run and the fresh seeds', at least
     names = [r["point"] for r in _rows(folder / "tuned.csv")]
     for name in names:
         assert (folder / f"landscape_{name}.png").read_bytes()[:4] == b"\x89PNG"
@@ -156,3 +166,61 @@ def test_help_prints_the_usage_and_exits_zero(capsys):
     assert command.main(["--help"]) == 0
     out = capsys.readouterr().out
     assert "assimbench-tune" in out and "tune.filter.inflation=[1.0,1.3]" in out
+
+
+def _fake_filter(monkeypatch, edge_search, edge_fresh):
+    """A filter whose error is 0.2 + 3 (inflation - 1)^2 and which loses a replicate below one
+    inflation on the search's seeds and below another on fresh seeds (the edge moves with the truth):
+    runs and lane programs of the tuner replaced by that rule, to test its choice alone."""
+    edges = {0: edge_search, 1: edge_fresh}
+
+    def error(x):
+        return 0.2 + 3.0 * (x - 1.0) ** 2
+
+    def confirm(point, tuned, objective, seed_shift=0):
+        x = tuned["filter.inflation"]
+        return (error(x), error(x) - 0.01, error(x) + 0.01), int(x < edges[seed_shift]), 100
+
+    def evaluator(point, axes, objective, seed_shift=0):
+        def evaluate(values):
+            lost = values[:, 0] < edges[seed_shift]
+            series = np.broadcast_to(error(values[:, 0])[:, None, None], (len(values), 2, 10)).copy()
+            return Evaluation(series, 2, lost, 10 * len(values), lost.astype(int))
+        return evaluate
+
+    monkeypatch.setattr(command, "confirm", confirm)
+    monkeypatch.setattr(command, "evaluator", evaluator)
+    axis = Axis("filter.inflation", 1.0, 1.3)
+    rng = np.random.default_rng(3)
+
+    def landscape(values):
+        lost = values[:, 0] < edge_search
+        series = error(values[:, 0])[:, None, None] + 0.01 * rng.standard_normal((len(values), 2, 200))
+        series[lost] = np.nan
+        return Evaluation(series, 20, lost, 400 * len(values))
+
+    outcome = search((axis,), landscape)
+    point = types.SimpleNamespace(name="p", config=types.SimpleNamespace(replicates=2))
+    return point, outcome, Options(**{**DEFAULTS, "points": 6})
+
+
+def test_a_tuned_setting_that_loses_on_fresh_seeds_moves_to_the_best_that_keeps_every_replicate(monkeypatch):
+    """The error is lowest at the edge of the lost region found by the search (1.06); on fresh seeds
+    the edge lies at 1.075. Tuned is the lowest-error setting on the way out that keeps every
+    replicate on both seed sets: with the error rising away from the edge, the first of them."""
+    point, outcome, options = _fake_filter(monkeypatch, 1.06, 1.075)
+    fitted = outcome.minimiser[0]
+    assert fitted < 1.075  # the fitted minimiser hugs the search's edge: it loses on fresh seeds
+    tuned = command.tuned_run(point, outcome, options)
+    path = retreat_path(outcome, outcome.minimiser, options.points)[:, 0]
+    first = int(np.argmax(path >= 1.075))
+    assert first > 0 and tuned["moved"] == first and tuned["outcome"].minimiser[0] == path[first]
+    assert tuned["fitted"] == outcome.minimiser and tuned["lost"] == 0 and tuned["fresh"][1] == 0
+    assert "moved" in tuned["outcome"].stopped
+
+
+def test_with_no_safe_setting_on_the_way_out_the_fitted_one_stays_and_is_flagged(monkeypatch, capsys):
+    point, outcome, options = _fake_filter(monkeypatch, 1.06, 1.5)
+    tuned = command.tuned_run(point, outcome, options)
+    assert tuned["moved"] == 0 and tuned["outcome"].minimiser == outcome.minimiser and tuned["fresh"][1] == 1
+    assert "LOST 1 of 2 replicates; not robust" in capsys.readouterr().out
