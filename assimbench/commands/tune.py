@@ -91,7 +91,7 @@ def prepare(argv: list) -> tuple:
     for point in points:
         if outputs.other_record(folder, point.name, point.key(axes, options, (cycles, seconds))):
             raise ConfigError(f"study={options.study} already holds {point.name} tuned with other inputs (config, "
-                              f"bounds, search or budget); choose another study= or remove "
+                              f"bounds, search, budget or tuner version); choose another study= or remove "
                               f"{os.path.join(folder, 'points', point.name + '.json')}")
     problem = unwritable(folder)
     if problem:
@@ -263,7 +263,8 @@ def main(argv=None) -> int:
     outputs.write_tables(folder, records)
     if any(r["members"] for r in records):
         outputs.tuned_curve(records, os.path.join(folder, "tuned_curve.png"))
-    print("tuned (in brackets: the 95% range of each tuned setting; the error is that of a run at the tuned settings):")
+    print("tuned (in brackets: the 95% range of the fitted minimiser; the error is that of a run at the tuned "
+          "settings):")
     for data in records:
         print("  " + outputs.summary_line(data))
     print(f"study: {folder}")

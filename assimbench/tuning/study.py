@@ -39,6 +39,8 @@ from assimbench.tuning.search import SCALES, Axis, Evaluation
 
 OPTIONS = {"study": str, "objective": str, "points": int, "passes": int, "tolerance": float,
            "budget_cycles": int, "budget_seconds": float}
+# Part of every point's key: a record written by a tuner that chose or stored differently is not reused.
+TUNER_VERSION = 2
 DEFAULTS = {"study": "tuning", "objective": "rmse_analysis", "points": 7, "passes": 8, "tolerance": 0.005,
             "budget_cycles": None, "budget_seconds": None}
 
@@ -74,7 +76,8 @@ class Point:
 
     def key(self, axes: tuple, options: Options, budget: tuple) -> str:
         """What a finished point's result depends on: resume reuses it only when this is unchanged."""
-        return content_hash({"config": config_hash(self.config), "axes": [a.__dict__ for a in axes],
+        return content_hash({"tuner": TUNER_VERSION, "config": config_hash(self.config),
+                             "axes": [a.__dict__ for a in axes],
                              "objective": options.objective, "points": options.points, "passes": options.passes,
                              "tolerance": options.tolerance, "budget": list(budget)})
 
