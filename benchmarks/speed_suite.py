@@ -47,6 +47,13 @@ CASES = {
     "L96 n=2000 LETKF N=20": (["filter=letkf", "filter.members=20", "filter.radius=4", "filter.inflation=1.02",
                                "model.size=2000"], 50),
     "L96 n=40 3D-Var": (["filter=3dvar", "filter.b_scale=0.05"], 4000),
+    # The same filters with A^-1 and A^(-1/2) by matrix products only (filter.transform_solver).
+    "L96 n=40 ETKF N=20 NS": (["filter.members=20", "filter.inflation=1.03", "filter.transform_solver=newton_schulz"],
+                              4000),
+    "L96 n=40 LETKF N=20 NS": (["filter=letkf", "filter.members=20", "filter.radius=4", "filter.inflation=1.02",
+                                "filter.transform_solver=newton_schulz"], 1000),
+    "L96 n=2000 LETKF N=20 NS": (["filter=letkf", "filter.members=20", "filter.radius=4", "filter.inflation=1.02",
+                                  "model.size=2000", "filter.transform_solver=newton_schulz"], 50),
     "L63 SIR N=1000": (L63 + ["filter=sir", "filter.members=1000", "filter.jitter=0.1"], 1000),
 }
 
@@ -155,18 +162,19 @@ def measure(name: str, overrides: list, cycles: int, repeats: int) -> dict:
             "flops_per_cycle": work, "package_gflops": work / p / 1e3}
 
 
-def lanes_case(cycles: int, repeats: int) -> dict:
+def lanes_case(cycles: int, repeats: int, solver: str = "eigh") -> dict:
     """32 lanes (8 inflations x 4 seeds) of the L96 n=40, 20-member ETKF in one program: microseconds
     per lane-cycle, against the NumPy twin's cycle (32 NumPy runs cost 32 of them)."""
-    overrides = ["filter.members=20", "lanes.filter.inflation=[1.0,1.01,1.02,1.03,1.04,1.05,1.07,1.1]",
+    overrides = ["filter.members=20", f"filter.transform_solver={solver}",
+                 "lanes.filter.inflation=[1.0,1.01,1.02,1.03,1.04,1.05,1.07,1.1]",
                  "replicates=4", f"cycles={cycles}", "burn_in=0", f"chunk_cycles={cycles}", "diagnostics=[]",
                  "output=null"]
     package = statistics.median(assimbench.run(overrides).microseconds_per_cycle / 32 for _ in range(repeats))
     start = package_start(["filter.members=20", "filter.inflation=1.03"])
     noise = np.random.default_rng(1).normal(size=(200, 40))
     baseline = statistics.median(1e6 * _timed(lambda: numpy_run(start, noise)) / 200 for _ in range(repeats))
-    return {"case": "L96 ETKF N=20, 32 lanes", "package_us_per_cycle": package, "numpy_us_per_cycle": baseline,
-            "ratio": baseline / package}
+    name = "L96 ETKF N=20, 32 lanes" + (" NS" if solver == "newton_schulz" else "")
+    return {"case": name, "package_us_per_cycle": package, "numpy_us_per_cycle": baseline, "ratio": baseline / package}
 
 
 def exponent(sizes, times) -> float:
@@ -221,8 +229,8 @@ def main():
         print(f"{name:<24}{row['package_us_per_cycle']:>12.1f}{row['compile_seconds']:>11.2f}"
               f"{row['numpy_us_per_cycle']:>11.1f}{row['ratio']:>8.1f}{agree:>11}"
               f"{row['package_gflops']:>9.2f}{row['fraction_of_matmul_rate']:>9.1%}", flush=True)
-    if not args.cases:
-        row = lanes_case(400 if args.quick else 2000, repeats)
+    for solver in ("eigh", "newton_schulz") if not args.cases else ():
+        row = lanes_case(400 if args.quick else 2000, repeats, solver)
         rows.append(row)
         print(f"{row['case']:<24}{row['package_us_per_cycle']:>12.1f}{'':>11}{row['numpy_us_per_cycle']:>11.1f}"
               f"{row['ratio']:>8.1f}   (per lane-cycle)", flush=True)

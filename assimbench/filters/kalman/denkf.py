@@ -25,33 +25,36 @@ import jax.numpy as jnp
 
 from assimbench.config.spec import FilterSpec
 from assimbench.filters.base import Filter
-from assimbench.filters.kalman.ensemble_space import ensemble_space, mean_weights, precision, transform_members
+from assimbench.filters.kalman.ensemble_space import ensemble_space, mean_weights, solve, transform_members
 from assimbench.filters.kalman.inflation import (
     INFLATION_SPEC_FIELDS,
     InflationConfig,
+    check_inflation,
     ensemble_filter,
     inflation_pieces,
 )
+from assimbench.filters.kalman.precision_solvers import check_transform_solver
 
 
-def denkf_analysis(members: jax.Array, obs_members: jax.Array, y: jax.Array, error_var) -> jax.Array:
+def denkf_analysis(members: jax.Array, obs_members: jax.Array, y: jax.Array, error_var,
+                   solver: str = "eigh") -> jax.Array:
     """One DEnKF analysis of ``members`` (N, n); obs_members (N, p); y (p,); error_var a scalar or (p,)
-    (R diagonal). Any inflation must already be applied. Returns (N, n)."""
+    (R diagonal); ``solver`` forms A^-1 (:mod:`assimbench.filters.kalman.precision_solvers`). Any
+    inflation must already be applied. Returns (N, n)."""
     n_members = members.shape[0]
     space = ensemble_space(members, obs_members, error_var)
-    evals, evecs = jnp.linalg.eigh(precision(space))
-    inverse = (evecs / evals) @ evecs.T  # A^-1
-    transform = 0.5 * (jnp.eye(n_members) + (n_members - 1) * inverse)
-    return transform_members(space, mean_weights(space, y, evals, evecs), transform)
+    solved = solve(space, solver)
+    transform = 0.5 * (jnp.eye(n_members) + (n_members - 1) * solved.inverse())
+    return transform_members(space, mean_weights(space, y, solved), transform)
 
 
-def make_denkf(operator, members: int, pieces=frozenset()) -> Filter:
+def make_denkf(operator, members: int, pieces=frozenset(), solver: str = "eigh") -> Filter:
     """DEnKF with the inflation pieces of :mod:`assimbench.filters.kalman.inflation`."""
 
     def update(key, prior, y, settings):
         del key  # deterministic
         error_var = settings["observation"]["error_std"] ** 2
-        return denkf_analysis(prior, operator(prior), y, error_var), {}
+        return denkf_analysis(prior, operator(prior), y, error_var, solver), {}
 
     return ensemble_filter("denkf", members, update, pieces)
 
@@ -59,15 +62,18 @@ def make_denkf(operator, members: int, pieces=frozenset()) -> Filter:
 @dataclass
 class DEnKFConfig(InflationConfig):
     """Deterministic EnKF (Sakov & Oke 2008): its half-gain anomaly update inflates implicitly, so it
-    usually needs less multiplicative inflation than the ETKF."""
+    usually needs less multiplicative inflation than the ETKF. transform_solver forms A^-1 by eigh or by
+    matrix products only (newton_schulz)."""
 
     name: str = "denkf"
     inflation: float = 1.01
+    transform_solver: str = "eigh"
 
 
 SPEC = FilterSpec(
     name="denkf",
     schema=DEnKFConfig,
-    build=lambda node, ctx: make_denkf(ctx.operator, int(node.members), inflation_pieces(node)),
-    **INFLATION_SPEC_FIELDS,
+    build=lambda node, ctx: make_denkf(ctx.operator, int(node.members), inflation_pieces(node),
+                                       str(node.transform_solver)),
+    **{**INFLATION_SPEC_FIELDS, "check": lambda c, model: (check_inflation(c), check_transform_solver(c))},
 )

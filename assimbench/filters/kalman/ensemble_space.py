@@ -13,6 +13,8 @@ from typing import NamedTuple
 import jax
 import jax.numpy as jnp
 
+from assimbench.filters.kalman.precision_solvers import solve_precision
+
 
 class EnsembleSpace(NamedTuple):
     """mean (n,), anomalies X (N, n), obs_mean (p,), obs_anomalies Y (N, p) and scaled = Y R^-1 (N, p)."""
@@ -38,9 +40,20 @@ def precision(space: EnsembleSpace) -> jax.Array:
     return (n_members - 1) * jnp.eye(n_members) + space.scaled @ space.obs_anomalies.T
 
 
-def mean_weights(space: EnsembleSpace, y: jax.Array, evals: jax.Array, evecs: jax.Array) -> jax.Array:
-    """wbar = A^-1 Y R^-1 (y - ybar) for A = V diag(evals) V^T (Hunt et al. 2007, eq. 21), (N,)."""
-    return evecs @ ((evecs.T @ (space.scaled @ (y - space.obs_mean))) / evals)
+def solve(space: EnsembleSpace, solver: str):
+    """A^-1 and A^(-1/2) of the precision A = (N - 1) I + Y R^-1 Y^T (:func:`precision`), whose smallest
+    eigenvalue is N - 1, by ``solver`` (:mod:`assimbench.filters.kalman.precision_solvers`)."""
+    return solve_precision(precision(space), space.anomalies.shape[0] - 1.0, solver)
+
+
+def mean_weights(space: EnsembleSpace, y: jax.Array, solved) -> jax.Array:
+    """wbar = A^-1 Y R^-1 (y - ybar) (Hunt et al. 2007, eq. 21), (N,); ``solved`` from :func:`solve`."""
+    return solved.apply_inverse(space.scaled @ (y - space.obs_mean))
+
+
+def square_root_transform(solved) -> jax.Array:
+    """W = sqrt(N - 1) A^(-1/2), the symmetric square root (Hunt et al. 2007, eq. 20), (N, N)."""
+    return solved.inverse_root(jnp.sqrt(solved.size - 1.0))
 
 
 def symmetric_square_root_transform(evals: jax.Array, evecs: jax.Array) -> jax.Array:

@@ -7,7 +7,6 @@ global version of their algorithm). Members are rows: X_b is (N, n).
 from dataclasses import dataclass
 
 import jax
-import jax.numpy as jnp
 
 from assimbench.config.spec import FilterSpec
 from assimbench.filters.base import Filter
@@ -21,14 +20,16 @@ from assimbench.filters.kalman.adaptive import (
 from assimbench.filters.kalman.ensemble_space import (
     ensemble_space,
     mean_weights,
-    precision,
-    symmetric_square_root_transform,
+    solve,
+    square_root_transform,
     transform_members,
 )
 from assimbench.filters.kalman.inflation import INFLATION_KEYS, WIDEST, ensemble_filter, inflation_pieces
+from assimbench.filters.kalman.precision_solvers import check_transform_solver
 
 
-def etkf_analysis(members: jax.Array, obs_members: jax.Array, y: jax.Array, error_var) -> jax.Array:
+def etkf_analysis(members: jax.Array, obs_members: jax.Array, y: jax.Array, error_var,
+                  solver: str = "eigh") -> jax.Array:
     """One ETKF analysis of the ensemble ``members`` (N, n).
 
     obs_members: h applied to every member, (N, p); y: observations (p,);
@@ -41,21 +42,22 @@ def etkf_analysis(members: jax.Array, obs_members: jax.Array, y: jax.Array, erro
         W      = sqrt(N - 1) A^(-1/2)             (symmetric square root)
         x_a,i  = xbar + sum_j (wbar_j + W_ji) X_j
 
-    Any inflation must already be applied to ``members``. Returns (N, n).
+    Any inflation must already be applied to ``members``. ``solver``: how A^-1 and A^(-1/2) are
+    formed (:mod:`assimbench.filters.kalman.precision_solvers`). Returns (N, n).
     """
     space = ensemble_space(members, obs_members, error_var)
-    evals, evecs = jnp.linalg.eigh(precision(space))
-    return transform_members(space, mean_weights(space, y, evals, evecs), symmetric_square_root_transform(evals, evecs))
+    solved = solve(space, solver)
+    return transform_members(space, mean_weights(space, y, solved), square_root_transform(solved))
 
 
-def make_etkf(operator, members: int, pieces=frozenset(), adaptive: bool = False) -> Filter:
+def make_etkf(operator, members: int, pieces=frozenset(), adaptive: bool = False, solver: str = "eigh") -> Filter:
     """ETKF with the inflation pieces of :mod:`assimbench.filters.inflation`; with ``adaptive`` the
     multiplicative factor is estimated every cycle (:mod:`assimbench.filters.adaptive`)."""
 
     def update(key, prior, y, settings):
         del key  # deterministic square-root filter
         error_var = settings["observation"]["error_std"] ** 2
-        return etkf_analysis(prior, operator(prior), y, error_var), {}
+        return etkf_analysis(prior, operator(prior), y, error_var, solver), {}
 
     if adaptive:
         return adaptive_ensemble_filter("etkf", members, update, operator, pieces)
@@ -64,17 +66,20 @@ def make_etkf(operator, members: int, pieces=frozenset(), adaptive: bool = False
 
 @dataclass
 class ETKFConfig(AdaptiveInflationConfig):
-    """ETKF (Hunt et al. 2007) with the inflation pieces and optional adaptive inflation."""
+    """ETKF (Hunt et al. 2007) with the inflation pieces and optional adaptive inflation; transform_solver
+    forms A^-1 and A^(-1/2) by eigh or by matrix products only (newton_schulz)."""
 
     name: str = "etkf"
+    transform_solver: str = "eigh"
 
 
 SPEC = FilterSpec(
     name="etkf",
     schema=ETKFConfig,
-    build=lambda node, ctx: make_etkf(ctx.operator, int(node.members), inflation_pieces(node), bool(node.adaptive)),
+    build=lambda node, ctx: make_etkf(ctx.operator, int(node.members), inflation_pieces(node), bool(node.adaptive),
+                                      str(node.transform_solver)),
     settings=adaptive_inflation_settings,
-    check=lambda c, model: check_adaptive_inflation(c),
+    check=lambda c, model: (check_adaptive_inflation(c), check_transform_solver(c)),
     traced=INFLATION_KEYS + ADAPTIVE_KEYS[:1],
     widest=WIDEST,
     kalman_exact=True,

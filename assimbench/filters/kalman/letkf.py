@@ -24,6 +24,7 @@ from assimbench.filters.kalman.adaptive import (
 )
 from assimbench.filters.kalman.ensemble_space import ensemble_space
 from assimbench.filters.kalman.inflation import INFLATION_KEYS, WIDEST, ensemble_filter, inflation_pieces
+from assimbench.filters.kalman.precision_solvers import check_transform_solver, solve_precision
 from assimbench.localization import gaspari_cohn, radius_of, radius_setting, ring_distance, with_radius_check
 
 
@@ -47,7 +48,7 @@ def local_windows(state_size: int, positions: np.ndarray, window_radius: float |
     return index, np.take_along_axis(distance, index, axis=1), mask
 
 
-def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight):
+def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight, solver: str = "eigh"):
     """LETKF analysis of ``members`` (N, n) with local observation weights.
 
     obs_members (N, p); y (p,); error_var scalar; local_index (n, K) which
@@ -58,6 +59,11 @@ def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight
         A_g = (N - 1) I + Y_g R_g^-1 Y_g^T,
         wbar_g = A_g^-1 Y_g R_g^-1 (y_g - ybar_g),  W_g = sqrt(N - 1) A_g^(-1/2),
         x_a[:, g] = xbar_g + X[:, g] . wbar_g + W_g X[:, g].
+
+    Every grid point's A_g has N - 1 as its smallest eigenvalue. ``solver="eigh"`` decomposes the n
+    matrices (a loop of LAPACK calls) and applies W_g without forming it; ``"newton_schulz"`` forms
+    every A_g^-1 and A_g^(-1/2) as one batched chain of matrix products
+    (:mod:`assimbench.filters.kalman.precision_solvers`).
     """
     n_members = members.shape[0]
     space = ensemble_space(members, obs_members, 1.0)
@@ -65,19 +71,24 @@ def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight
     local_y = jnp.moveaxis(space.obs_anomalies[:, local_index], 1, 0)  # (n, N, K)
     scaled = local_y * (local_weight / error_var)[:, None, :]
     precision = (n_members - 1) * jnp.eye(n_members) + jnp.einsum("gik,gjk->gij", scaled, local_y)
-    evals, evecs = jnp.linalg.eigh(precision)  # batched over grid points
     departures = (y - obs_mean)[local_index]  # (n, K)
     rhs = jnp.einsum("gik,gk->gi", scaled, departures)
-    weights_mean = jnp.einsum("gij,gj->gi", evecs, jnp.einsum("gji,gj->gi", evecs, rhs) / evals)
     column = anomalies.T  # (n, N): the anomalies of each grid point
-    rotated = jnp.einsum("gji,gj->gi", evecs, column) / jnp.sqrt(evals)
-    transformed = jnp.sqrt(n_members - 1.0) * jnp.einsum("gij,gj->gi", evecs, rotated)  # W_g X[:, g]
+    if solver == "eigh":
+        evals, evecs = jnp.linalg.eigh(precision)  # batched over grid points
+        weights_mean = jnp.einsum("gij,gj->gi", evecs, jnp.einsum("gji,gj->gi", evecs, rhs) / evals)
+        rotated = jnp.einsum("gji,gj->gi", evecs, column) / jnp.sqrt(evals)
+        transformed = jnp.sqrt(n_members - 1.0) * jnp.einsum("gij,gj->gi", evecs, rotated)  # W_g X[:, g]
+    else:
+        solved = solve_precision(precision, n_members - 1.0, solver)
+        weights_mean = solved.apply_inverse(rhs)
+        transformed = jnp.sqrt(n_members - 1.0) * jnp.einsum("gij,gj->gi", solved.inverse_root(), column)
     update = jnp.sum(weights_mean * column, axis=1)  # (n,)
     return mean + update[None, :] + transformed.T
 
 
 def make_letkf(model, operator, members: int, radius: float | None, pieces=frozenset(),
-               adaptive: bool = False) -> Filter:
+               adaptive: bool = False, solver: str = "eigh") -> Filter:
     """LETKF on a ring model. ``radius`` (the configured c) fixes the static observation window
     (2c); the traced ``settings["filter"]["radius"]`` sets the taper inside it. With
     ``radius=None`` every grid point sees every observation with weight 1."""
@@ -91,7 +102,7 @@ def make_letkf(model, operator, members: int, radius: float | None, pieces=froze
     def update(key, prior, y, settings):
         del key
         error_var = settings["observation"]["error_std"] ** 2
-        return letkf_analysis(prior, operator(prior), y, error_var, index, local_weight(settings)), {}
+        return letkf_analysis(prior, operator(prior), y, error_var, index, local_weight(settings), solver), {}
 
     if adaptive:  # one factor per grid point, from the observations it sees (assimbench/filters/adaptive.py)
         windows = lambda settings: (index, local_weight(settings))
@@ -102,15 +113,16 @@ def make_letkf(model, operator, members: int, radius: float | None, pieces=froze
 @dataclass
 class LETKFConfig(AdaptiveInflationConfig):
     """LETKF; radius is the Gaspari-Cohn half-width c in grid units (weights reach zero at 2c;
-    null: no localization)."""
+    null: no localization); transform_solver: eigh, or newton_schulz (matrix products only)."""
 
     name: str = "letkf"
     radius: float | None = 4.0
+    transform_solver: str = "eigh"
 
 
 def _build(node, ctx) -> Filter:
     return make_letkf(ctx.model, ctx.operator, int(node.members), radius_of(node), inflation_pieces(node),
-                      bool(node.adaptive))
+                      bool(node.adaptive), str(node.transform_solver))
 
 
 SPEC = FilterSpec(
@@ -118,7 +130,7 @@ SPEC = FilterSpec(
     schema=LETKFConfig,
     build=_build,
     settings=lambda node: {**adaptive_inflation_settings(node), **radius_setting(node)},
-    check=with_radius_check(check_adaptive_inflation),
+    check=with_radius_check(lambda c: (check_adaptive_inflation(c), check_transform_solver(c))),
     traced=INFLATION_KEYS + ("radius",) + ADAPTIVE_KEYS[:1],
     widest=WIDEST + ("radius",),
     kalman_exact=True,
