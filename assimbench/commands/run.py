@@ -37,6 +37,7 @@ from assimbench.config.plan import resolve
 from assimbench.io.provenance import config_hash
 from assimbench.io.results import ResultFileError, read_result, stored_config_hash
 from assimbench.report.words import setting_word, value_text
+from assimbench.twin.block_workers import WorkerFailed
 
 COMMAND = "assimbench"
 
@@ -292,6 +293,10 @@ def _hydra_app(cfg: DictConfig) -> None:
         result = run_experiment(plan, output=output, progress=progress, keep_series=False)
     except ConfigError as err:
         sys.exit(fail(COMMAND, str(err)))
+    except WorkerFailed as err:
+        kept = f"; the completed chunks are kept in {output}.partial, marked incomplete" if output is not None else ""
+        print(f"{COMMAND}: error: {err}{kept}", file=sys.stderr, flush=True)
+        sys.exit(1)
     except Stopped as stop:
         name = signal.Signals(stop.signum).name
         kept = (f"the completed chunks ({progress.done} of {cfg.cycles} cycles) are kept in {output}.partial, "

@@ -7,14 +7,13 @@ Nothing here builds a component or touches a file.
 """
 
 import dataclasses
-import itertools
 from typing import NamedTuple
 
 from omegaconf import DictConfig
 
 from assimbench.config.catalogue import Catalogue, catalogue
 from assimbench.config.checks import ConfigError, NodeChecks, fail
-from assimbench.config.lanes import check_lane_lists, given_lanes, plain_config, with_values
+from assimbench.config.lanes import COMBINATIONS, check_lane_lists, given_lanes, lane_rows, plain_config, with_values
 from assimbench.config.schema import ExperimentBase, StoreConfig
 from assimbench.config.spec import FilterSpec, ModelFacts
 from assimbench.integrators import steps_per_cycle
@@ -104,6 +103,12 @@ def _check_run(cfg) -> None:
     c.seed()
     c.integer("replicates", 1, "an integer >= 1")
     c.integer("chunk_cycles", 1, "an integer >= 1")
+    if cfg.get("lane_combination", "all") not in COMBINATIONS:
+        fail("lane_combination", cfg.lane_combination, "all (every combination of the lane lists) or matched "
+             "(the lists side by side)")
+    workers = cfg.get("workers", "auto")
+    if workers != "auto" and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 1):
+        fail("workers", workers, "auto (one process per core for a long batch) or an integer >= 1 (1 = this process)")
     c.real("initial_spread", "a finite standard deviation >= 0", minimum=0.0, strict=False)
 
 
@@ -141,12 +146,13 @@ def _check_lanes(cfg, choice: Choice, cat: Catalogue) -> None:
               else choice.forecast.traced, "observation": cat.network.traced, "filter": choice.filter.traced}
     names = {section: f"{section} {cfg[section].name}" if "name" in cfg[section] else section for section in traced}
     forecaster = "model" if choice.forecast.name == "same" else "forecast_model"
-    check_lane_lists(given, traced, names, forecaster if choice.filter.climatology else None)
+    combination = cfg.get("lane_combination", "all")
+    check_lane_lists(given, traced, names, forecaster if choice.filter.climatology else None, combination)
     plain = plain_config(cfg)
     checks = _section_checks(choice, cat)
     for section, check_node in checks.items():
         lists = [(key, values) for key, values in given if key.rpartition(".")[0] == section]
-        for values in itertools.product(*(v for _, v in lists)) if lists else ():
+        for values in lane_rows([v for _, v in lists], combination) if lists else ():
             lane = with_values(plain, [k for k, _ in lists], values)
             try:
                 check_node(lane[section] if section else lane)

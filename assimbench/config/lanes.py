@@ -4,7 +4,9 @@ A lane is one combination of values of traced settings, given as lists under
 ``lanes``, e.g. ``lanes.filter.inflation=[1.02,1.05,1.1] replicates=4``: the
 job then runs 3 lanes x 4 replicates = 12 experiments in one program. With
 several lists the lanes are every combination (the last key varies fastest;
-keys in catalogue order). Every lane of a replicate sees the same truth and
+keys in catalogue order), or, with ``lane_combination=matched``, the lists
+read side by side (lists of one length; lane i takes the i-th value of each:
+a diagonal, or any set of points, such as the tuner's candidates). Every lane of a replicate sees the same truth and
 observations unless a lane key changes them (model settings, the observation
 error), so lane differences are paired.
 
@@ -61,12 +63,22 @@ def given_lanes(cfg: DictConfig, lane_keys: dict) -> list:
     return given + [(name, list(lanes[name])) for name in TOP_LANE_KEYS if lanes[name] is not None]
 
 
-def lane_grid(given: list) -> LaneGrid:
-    """Every combination of the lane lists (one lane, no keys, when there are none)."""
+COMBINATIONS = ("all", "matched")
+
+
+def lane_rows(lists: list, combination: str = "all") -> list:
+    """The lanes of value lists, one tuple per lane: every combination (``all``; the last list varies
+    fastest), or the lists read side by side (``matched``: lane i takes the i-th value of each list;
+    the lists have one length, see :func:`check_lane_lists`)."""
+    return list(zip(*lists)) if combination == "matched" else list(itertools.product(*lists))
+
+
+def lane_grid(given: list, combination: str = "all") -> LaneGrid:
+    """The lanes of the lane lists (one lane, no keys, when there are none); see :func:`lane_rows`."""
     if not given:
         return LaneGrid(keys=(), values=np.zeros((1, 0)))
     keys = tuple(key for key, _ in given)
-    values = np.array(list(itertools.product(*(vals for _, vals in given))), dtype=np.float64)
+    values = np.array(lane_rows([vals for _, vals in given], combination), dtype=np.float64)
     return LaneGrid(keys=keys, values=values.reshape(-1, len(keys)))
 
 
@@ -90,8 +102,10 @@ def hull_values(grid: LaneGrid, widest: set) -> np.ndarray:
     return np.array([grid.values[:, j].max() if key in widest else grid.values[0, j] for j, key in enumerate(grid.keys)])
 
 
-def check_lane_lists(given: list, traced: dict, names: dict, climatology_section: str | None) -> None:
-    """Lane lists must be non-empty and name traced settings of the chosen components.
+def check_lane_lists(given: list, traced: dict, names: dict, climatology_section: str | None,
+                     combination: str = "all") -> None:
+    """Lane lists must be non-empty, name traced settings of the chosen components and, when
+    ``combination`` is ``matched``, have one length.
 
     traced: section -> the chosen component's traced keys; names: section -> a
     description of the chosen component ("filter etkf"); climatology_section:
@@ -110,6 +124,13 @@ def check_lane_lists(given: list, traced: dict, names: dict, climatology_section
         if section == climatology_section:
             raise ConfigError(f"lanes.{key} is not allowed with {names['filter']}: its static parts come from "
                               "the forecast model's climatology; sweep model settings with --multirun")
-    size = int(np.prod([len(values) for _, values in given])) if given else 1
+    if combination == "matched" and len({len(values) for _, values in given}) > 1:
+        lengths = ", ".join(f"lanes.{key} {len(values)}" for key, values in given)
+        raise ConfigError(f"lanes: lists of different lengths ({lengths}) are not allowed with "
+                          "lane_combination=matched: lists of one length (lane i takes the i-th value of each)")
+    if combination == "matched":
+        size = len(given[0][1]) if given else 1
+    else:
+        size = int(np.prod([len(values) for _, values in given])) if given else 1
     if size > MAX_LANES:
         raise ConfigError(f"lanes: {size} lanes is not allowed: at most {MAX_LANES} in one job")

@@ -39,7 +39,8 @@ class Plan:
     of the climatological mean, a reference level); thresholds: (lanes,)
     analysis RMSE above which a run counts as lost (inf for reference runs);
     experiment_keys: (lanes,) hashes of what fixes each lane's truth and
-    observations; attrs: the provenance stored in the result file; title: one
+    observations; workers: "auto" or the most processes the run may use
+    (see twin/block_workers.py); attrs: the provenance stored in the result file; title: one
     line naming the run for printed summaries.
     """
 
@@ -52,6 +53,7 @@ class Plan:
     cycles: int
     burn_in: int
     chunk_cycles: int
+    workers: object
     seed: int
     interval: float
     patience: int
@@ -147,7 +149,7 @@ def resolve(cfg: DictConfig) -> Plan:
     """Check ``cfg`` (ConfigError on the first bad key) and build its frozen plan."""
     choice = check(cfg)
     plain = plain_config(cfg)
-    grid = lane_grid(choice.lanes)
+    grid = lane_grid(choice.lanes, cfg.get("lane_combination", "all"))
     widest = {f"filter.{key}" for key in choice.filter.widest}
     hull = with_values(plain, grid.keys, hull_values(grid, widest)) if grid.keys else plain
     setup = build_setup(hull, choice)
@@ -168,7 +170,8 @@ def resolve(cfg: DictConfig) -> Plan:
     layouts, coordinates = layouts_of(setup)
     return Plan(
         config=cfg, choice=choice, setup=setup, settings=settings, grid=grid, replicates=replicates,
-        cycles=int(cfg.cycles), burn_in=int(cfg.burn_in), chunk_cycles=int(cfg.chunk_cycles), seed=int(cfg.seed),
+        cycles=int(cfg.cycles), burn_in=int(cfg.burn_in), chunk_cycles=int(cfg.chunk_cycles),
+        workers=cfg.get("workers", "auto"), seed=int(cfg.seed),
         interval=float(cfg.observation.interval), patience=int(cfg.divergence_patience),
         ensemble_every=int(cfg.store.ensemble_every), climate_stds=climate_stds, thresholds=thresholds, experiment_keys=keys,
         layouts=layouts, coordinates=coordinates, attrs=provenance(cfg, list(keys)), title=_title(cfg, choice),

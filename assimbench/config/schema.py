@@ -37,6 +37,13 @@ class ExperimentBase:
     independent seeds run as one vectorised batch; initial_spread: standard
     deviation of the noise added to the truth to make the initial members;
     chunk_cycles: cycles per compiled chunk (streaming and progress);
+    lane_combination: how several lane lists make lanes, "all" (every
+    combination) or "matched" (the lists side by side, lane i taking the
+    i-th value of each);
+    workers: processes the batch (lanes x replicates) is split over, "auto"
+    (one per core for a run of at least 2 batch elements and 50,000
+    run-cycles) or an integer >= 1 (1: this process only); the values do
+    not depend on it;
     output: HDF5 file to write (relative paths go in the job's run folder);
     diagnostics: optional diagnostic groups to compute (null: every group the
     filter can give); store: optional stored fields; a run has diverged when
@@ -61,6 +68,8 @@ class ExperimentBase:
     replicates: int = 1
     initial_spread: float = 1.0
     chunk_cycles: int = 1000
+    lane_combination: str = "all"
+    workers: Any = "auto"
     output: str | None = "result.h5"
     diagnostics: list[str] | None = None
     store: StoreConfig = field(default_factory=StoreConfig)

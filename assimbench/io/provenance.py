@@ -19,9 +19,11 @@ def content_hash(plain) -> str:
 
 
 def config_hash(cfg: DictConfig) -> str:
-    """SHA-256 of the resolved config without ``output`` (where a result goes does not change it)."""
+    """SHA-256 of the resolved config without ``output`` and ``workers`` (where a result goes and how
+    many processes computed it do not change it)."""
     plain = OmegaConf.to_container(cfg, resolve=True)
     plain.pop("output", None)
+    plain.pop("workers", None)
     return content_hash(plain)
 
 

@@ -27,7 +27,7 @@ from assimbench.io.results import Result, ResultFileError, read_result
 EXPERIMENT_PREFIXES = ("model.", "observation.")
 EXPERIMENT_KEYS = ("replicates", "cycles", "burn_in", "truth_noise_std")
 # Keys that never describe a setting of the comparison.
-IGNORED_PREFIXES = ("lanes.", "store.", "output", "chunk_cycles", "diagnostics", "divergence_")
+IGNORED_PREFIXES = ("lanes.", "store.", "output", "chunk_cycles", "workers", "lane_combination", "diagnostics", "divergence_")
 
 
 @dataclass

@@ -40,7 +40,7 @@ from assimbench.tuning.search import SCALES, Axis, Evaluation
 OPTIONS = {"study": str, "objective": str, "points": int, "passes": int, "tolerance": float,
            "budget_cycles": int, "budget_seconds": float}
 # Part of every point's key: a record written by a tuner that chose or stored differently is not reused.
-TUNER_VERSION = 2
+TUNER_VERSION = 3
 DEFAULTS = {"study": "tuning", "objective": "rmse_analysis", "points": 7, "passes": 8, "tolerance": 0.005,
             "budget_cycles": None, "budget_seconds": None}
 
@@ -148,9 +148,11 @@ def split_arguments(argv: list) -> tuple:
 
 
 def with_lanes(cfg, axes: tuple, values: np.ndarray):
-    """A copy of ``cfg`` whose lanes are the rows of ``values`` (lanes, k), for every axis;
-    ConfigError for a key that is not a lane key (in the main command's words)."""
+    """A copy of ``cfg`` whose lanes are the rows of ``values`` (lanes, k), for every axis (the lists
+    matched side by side, not combined); ConfigError for a key that is not a lane key (in the main
+    command's words)."""
     out = copy.deepcopy(cfg)
+    OmegaConf.update(out, "lane_combination", "matched", merge=False)
     for j, axis in enumerate(axes):
         try:
             OmegaConf.update(out, f"lanes.{axis.key}", [float(v) for v in values[:, j]], merge=False)

@@ -5,7 +5,8 @@ then runs the chunks in order and hands each one to every sink: the time
 means, the divergence monitor, the result writer, the progress callback. The
 batch axis inside a run is lanes x replicates, lane-major; :class:`Batch`
 reshapes it to (lane, replicate) in this one place, for the writer and for
-the result.
+the result. With ``workers`` > 1 the batch is cut into contiguous blocks run
+by worker processes (twin/block_workers.py); the sinks see the same chunks.
 """
 
 import time
@@ -19,6 +20,7 @@ from omegaconf import OmegaConf
 
 from assimbench.io.result_writer import ResultWriter
 from assimbench.io.results import Result
+from assimbench.twin.block_workers import BlockWorkers, worker_count
 from assimbench.twin.cycling import make_chunk, make_start, replicate_keys
 from assimbench.twin.summaries import TimeMeans, update_lost_runs
 
@@ -114,29 +116,59 @@ class ProgressSink(NamedTuple):
         self.progress(chunk.first_cycle + chunk.length - 1, self.total)
 
 
-def compile_programs(plan):
-    """(start carry, compiled chunk, keys, compile seconds) of a plan: one compilation of each program."""
+def block_programs(plan, first: int, stop: int, length: int) -> tuple:
+    """(start carry, compiled chunk, keys, settings) of the batch elements first..stop-1 of a plan
+    (lane-major flat indices): one compilation of each program, for chunks of ``length`` cycles."""
+    keys = jnp.tile(replicate_keys(plan.seed, plan.replicates), (plan.lanes, 1))[first:stop]
+    settings = jax.tree.map(lambda leaf: leaf[first:stop], plan.settings) if plan.batched else plan.settings
+    start = make_start(plan.setup, plan.batched).lower(keys, settings).compile()
+    carry = start(keys, settings)
+    first_cycle = jnp.asarray(1, dtype=jnp.int64)
+    chunk = make_chunk(plan.setup, length, plan.batched).lower(carry, keys, first_cycle, settings).compile()
+    return carry, chunk, keys, settings
+
+
+def run_block(plan, carry, chunk, keys, settings, length: int):
+    """Yield every chunk's outputs of one block in cycle order: name -> (block, kept cycles, ...) numpy
+    arrays (the last chunk may run past the end; its extra cycles are cut)."""
+    for first_cycle in range(1, plan.cycles + 1, length):
+        carry, out = chunk(carry, keys, jnp.asarray(first_cycle, dtype=jnp.int64), settings)
+        keep = min(length, plan.cycles - first_cycle + 1)
+        yield {name: np.asarray(values[:, :keep]) for name, values in jax.device_get(out).items()}
+
+
+def _in_process(plan, length: int, timing: dict):
+    """Every chunk's outputs of the whole batch, run in this process."""
     tic = time.perf_counter()
-    keys = jnp.tile(replicate_keys(plan.seed, plan.replicates), (plan.lanes, 1))
-    length = min(plan.chunk_cycles, plan.cycles)
-    start = make_start(plan.setup, plan.batched).lower(keys, plan.settings).compile()
-    carry = start(keys, plan.settings)
-    first = jnp.asarray(1, dtype=jnp.int64)
-    chunk = make_chunk(plan.setup, length, plan.batched).lower(carry, keys, first, plan.settings).compile()
-    return carry, chunk, keys, time.perf_counter() - tic
+    programs = block_programs(plan, 0, plan.lanes * plan.replicates, length)
+    timing["compile"] = time.perf_counter() - tic
+    yield
+    yield from run_block(plan, *programs, length)
 
 
-def _chunks(plan, carry, chunk, keys, clock: list):
-    """Yield every Chunk of the run in cycle order; ``clock[0]`` accumulates the seconds spent cycling."""
+def _in_workers(plan, length: int, workers: int, timing: dict):
+    """Every chunk's outputs of the whole batch, run in ``workers`` processes (see block_workers)."""
+    config = OmegaConf.to_container(plan.config, resolve=True)
+    pool = BlockWorkers(config, plan.lanes * plan.replicates, workers, length)
+    try:
+        timing["compile"] = pool.compiled()
+        yield
+        for _ in range(1, plan.cycles + 1, length):
+            yield pool.next_chunk()
+    finally:
+        pool.close()
+
+
+def _chunks(plan, outputs, clock: list):
+    """Yield every Chunk of the run in cycle order from the per-chunk ``outputs``; ``clock[0]``
+    accumulates the seconds spent cycling (waiting for the outputs)."""
     length = min(plan.chunk_cycles, plan.cycles)
     every = plan.ensemble_every
     for first_cycle in range(1, plan.cycles + 1, length):
         tic = time.perf_counter()
-        carry, out = chunk(carry, keys, jnp.asarray(first_cycle, dtype=jnp.int64), plan.settings)
-        out = jax.device_get(out)
+        out = next(outputs)
         clock[0] += time.perf_counter() - tic
-        keep = min(length, plan.cycles - first_cycle + 1)  # the last chunk may run past the end
-        out = {name: np.asarray(values[:, :keep]) for name, values in out.items()}
+        keep = min(length, plan.cycles - first_cycle + 1)
         cycles = first_cycle + np.arange(keep)
         snapshots = cycles[cycles % every == 0] if every else np.array([], dtype=np.int64)
         if "analysis_ensemble" in out:
@@ -167,7 +199,11 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
     batch = Batch(plan.lanes, plan.replicates, plan.batched)
     scalar_names = [n for n, lay in plan.layouts.items() if lay.dims == ("replicate", "cycle")]
     count_names = [n for n, lay in plan.layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "rank"]
-    carry, chunk, keys, compile_seconds = compile_programs(plan)
+    length = min(plan.chunk_cycles, plan.cycles)
+    workers = worker_count(plan.workers, plan.lanes * plan.replicates, plan.cycles)
+    timing = {}
+    outputs = _in_workers(plan, length, workers, timing) if workers > 1 else _in_process(plan, length, timing)
+    next(outputs)  # compiled (in this process or in every worker)
     startup_seconds = time.perf_counter() - started
     means = MeansSink(plan, scalar_names + count_names, keep_series)
     monitor = DivergenceMonitor(plan, scalar_names)
@@ -177,7 +213,7 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
     sinks += [ProgressSink(progress, plan.cycles)] if progress else []
     clock = [0.0]
     try:
-        for piece in _chunks(plan, carry, chunk, keys, clock):
+        for piece in _chunks(plan, outputs, clock):
             for sink in sinks:
                 sink.add(piece)
         summary, per_replicate = _summaries(plan, means, scalar_names, batch)
@@ -189,7 +225,8 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
             "climatological_std": float(plan.climate_stds[0]) if plan.lanes == 1 else plan.climate_stds,
             "divergence_patience": plan.patience,
             "interval_method": "batch means, 20 batches after burn-in, Student t 95%",
-            "compile_seconds": compile_seconds,
+            "compile_seconds": timing["compile"],
+            "workers": workers,
             "startup_seconds": startup_seconds,
             "run_seconds": clock[0],
         }
@@ -205,4 +242,6 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
         if writer is not None:
             writer.writer.close_incomplete()
         raise
+    finally:
+        outputs.close()  # stops the workers of an interrupted run
     return result

@@ -45,6 +45,24 @@ def test_radius_lanes_use_the_largest_window_and_still_match_single_runs():
         np.testing.assert_allclose(lanes, alone, rtol=1e-8, atol=1e-10)
 
 
+def test_matched_lane_lists_are_read_side_by_side_and_equal_the_same_settings_run_one_by_one():
+    """lane_combination=matched: lane i takes the i-th value of every list (not every combination)."""
+    pairs = [(1.0, 1.5), (1.2, 3.0)]
+    lanes = ["filter=letkf", "lane_combination=matched", "lanes.filter.inflation=[1.0,1.2]", "lanes.filter.radius=[1.5,3.0]"]
+    singles = [["filter=letkf", f"filter.inflation={a}", f"filter.radius={r}"] for a, r in pairs]
+    for lane_series, alone, batch, *_ in _series_of_each_lane(lanes, singles):
+        assert batch.series["rmse_analysis"].shape[0] == 2
+        np.testing.assert_allclose(batch.lanes["filter.inflation"], [1.0, 1.2])
+        np.testing.assert_allclose(batch.lanes["filter.radius"], [1.5, 3.0])
+        np.testing.assert_allclose(lane_series, alone, rtol=1e-8, atol=1e-10)
+
+
+def test_matched_lane_lists_of_different_lengths_are_refused_in_one_line():
+    with pytest.raises(ConfigError, match=r"lanes\.filter\.inflation 2, lanes\.filter\.radius 3.*lane_combination=matched"):
+        compose_config(SHORT + ["filter=letkf", "lane_combination=matched", "lanes.filter.inflation=[1.0,1.2]",
+                                "lanes.filter.radius=[1.5,3.0,4.0]"])
+
+
 RUN = ["cycles=80", "burn_in=20", "chunk_cycles=30", "replicates=2"]
 
 

@@ -12,12 +12,14 @@ import numpy as np
 import pytest
 import yaml
 
+import assimbench
 from assimbench.commands import run as main_command
 from assimbench.commands import tune as command
 from assimbench.commands._hydra import prepare_hydra
 from assimbench.config.catalogue import catalogue
 from assimbench.config.composition import compose_config
 from assimbench.reproduction import load_cards
+from assimbench.tuning import study as study_module
 from assimbench.tuning.search import Axis, Evaluation, retreat_path, search
 from assimbench.tuning.study import DEFAULTS, Options, Point, check_point, split_arguments
 
@@ -160,6 +162,22 @@ def test_tuning_finds_the_published_etkf_card_for_fewer_cycles_than_a_grid(card_
     # The card's inflation is given to 0.01: a grid at that step over the same bounds is 31 runs.
     grid_cycles = 31 * length["cycles"] * length["replicates"]
     assert int(row["cycles_spent"]) < grid_cycles
+
+
+def test_the_evaluator_on_two_settings_runs_each_candidate_row_as_one_lane():
+    """Every row of a pass (a candidate: one value per axis) is one lane, run at exactly its values:
+    equal to the main command at that setting. (The lists must be matched side by side; combined
+    they would make rows^2 lanes and give every candidate the first row's inflation.)"""
+    prepare_hydra()
+    rest = ["filter=letkf", "model.size=12", "filter.members=6", "cycles=60", "burn_in=10", "replicates=2"]
+    point = Point("point", rest, compose_config(rest))
+    axes = (Axis("filter.inflation", 1.0, 1.3), Axis("filter.radius", 1.0, 4.0))
+    rows = np.array([[1.0, 1.5], [1.25, 1.5], [1.25, 3.0]])
+    evaluation = study_module.evaluator(point, axes, "rmse_analysis")(rows)
+    assert evaluation.series.shape == (3, 2, 60) and evaluation.cost == 3 * 2 * 60
+    for lane, (inflation, radius) in enumerate(rows):
+        alone = assimbench.run(rest + [f"filter.inflation={inflation}", f"filter.radius={radius}"])
+        np.testing.assert_allclose(evaluation.series[lane], alone.series["rmse_analysis"], rtol=1e-8, atol=1e-10)
 
 
 def test_help_prints_the_usage_and_exits_zero(capsys):

@@ -183,11 +183,11 @@ def test_a_run_with_an_imperfect_forecast_model_is_repeated_from_its_file(tmp_pa
     _assert_same_bits(first, again)
 
 
-def _type_ctrl_c(tmp_path, name, delay):
+def _type_ctrl_c(tmp_path, name, delay, extra=()):
     """Run in a pseudo-terminal, type Ctrl-C ``delay`` s after the partial file appears; (exit code,
     what the terminal showed, final file, partial file)."""
     target, partial = tmp_path / f"{name}.h5", tmp_path / f"{name}.h5.partial"
-    command = _command() + LONG_RUN + [f"output={target}"]
+    command = _command() + LONG_RUN + list(extra) + [f"output={target}"]
     pid, fd = pty.fork()
     if pid == 0:  # the child: a session of its own with the pty as its controlling terminal
         os.chdir(tmp_path)
@@ -228,6 +228,19 @@ def test_ctrl_c_typed_in_a_terminal_always_stops_the_run(tmp_path, delay):
     assert code == 130, shown
     assert not target.exists() and partial.exists(), shown
     assert "stopped by SIGINT" in shown and "Exception ignored" not in shown, shown
+    with h5py.File(partial, "r") as f:
+        assert not f.attrs["complete"]
+
+
+@pytest.mark.filterwarnings("ignore:os.fork:RuntimeWarning")
+def test_ctrl_c_stops_a_run_split_over_workers_as_it_stops_one_process(tmp_path):
+    """The workers share the terminal's process group, so they get the SIGINT too; they leave the stop
+    to the parent, which keeps the completed chunks and says so, as without workers."""
+    code, shown, target, partial = _type_ctrl_c(tmp_path, "split", 0.5, ["replicates=2", "workers=2"])
+    assert code == 130, shown
+    assert not target.exists() and partial.exists(), shown
+    lines = [line for line in shown.splitlines() if "assimbench:" in line]
+    assert any("stopped by SIGINT" in line for line in lines) and "worker" not in shown, shown
     with h5py.File(partial, "r") as f:
         assert not f.attrs["complete"]
 
