@@ -192,9 +192,11 @@ def landscape(data: dict, path: str) -> str:
             if data["best"] is not None:
                 ax.plot([data["best"][axes[0]["key"]]], [data["best"][axes[1]["key"]]], marker="*", ms=14, ls="none",
                         color=OKABE_ITO["vermillion"], markeredgecolor="black", markeredgewidth=0.6, label="tuned")
-            for j, setter in ((0, ax.set_xscale), (1, ax.set_yscale)):
+            for j, (setter, axis) in enumerate(((ax.set_xscale, ax.xaxis), (ax.set_yscale, ax.yaxis))):
                 if axes[j]["scale"] == "log":
-                    setter("log")
+                    setter("log")  # ticks as plain numbers (2, 5, 10), not powers of ten
+                    axis.set_major_formatter(matplotlib.ticker.FormatStrFormatter("%g"))
+                    axis.set_minor_formatter(matplotlib.ticker.FormatStrFormatter("%g"))
             ax.set_xlabel(setting_word(axes[0]["key"]))
             ax.set_ylabel(setting_word(axes[1]["key"]))
             bar = fig.colorbar(image, ax=ax)
