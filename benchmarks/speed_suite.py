@@ -168,7 +168,7 @@ def lanes_case(cycles: int, repeats: int, solver: str = "eigh") -> dict:
     overrides = ["filter.members=20", f"filter.transform_solver={solver}",
                  "lanes.filter.inflation=[1.0,1.01,1.02,1.03,1.04,1.05,1.07,1.1]",
                  "replicates=4", f"cycles={cycles}", "burn_in=0", f"chunk_cycles={cycles}", "diagnostics=[]",
-                 "output=null"]
+                 "output=null", "workers=1"]  # one process: benchmarks/lane_speed.py measures workers
     package = statistics.median(assimbench.run(overrides).microseconds_per_cycle / 32 for _ in range(repeats))
     start = package_start(["filter.members=20", "filter.inflation=1.03"])
     noise = np.random.default_rng(1).normal(size=(200, 40))

@@ -41,7 +41,7 @@ class ExperimentBase:
     combination) or "matched" (the lists side by side, lane i taking the
     i-th value of each);
     workers: processes the batch (lanes x replicates) is split over, "auto"
-    (one per core for a run of at least 2 batch elements and 50,000
+    (one per core for a run of at least 2 batch elements and 200,000
     run-cycles) or an integer >= 1 (1: this process only); the values do
     not depend on it;
     output: HDF5 file to write (relative paths go in the job's run folder);

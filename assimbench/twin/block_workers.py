@@ -37,7 +37,7 @@ import numpy as np
 # A batch smaller than this many run-cycles (batch elements x cycles) runs in one process under
 # workers=auto: a worker's start (importing JAX, planning, compiling) costs a few seconds, which only
 # pays on a run long enough to gain them back (see the README's performance section).
-AUTO_MIN_RUN_CYCLES = 50_000
+AUTO_MIN_RUN_CYCLES = 200_000
 
 
 def available_cores() -> int:
