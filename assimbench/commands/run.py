@@ -209,6 +209,8 @@ def _lane_rows(result) -> list:
 def _footer(result, path) -> list:
     batch = int(np.size(result.first_bad_cycle))
     runs = f"{batch} runs side by side" if batch > 1 else "1 run"
+    workers = int(result.attrs.get("workers", 1))
+    runs += f" in {workers} worker processes" if workers > 1 else ""
     lines = [
         f"  start-up {result.attrs['startup_seconds']:.1f} s (compile {result.compile_seconds:.1f} s), "
         + f"cycling {result.run_seconds:.2f} s "

@@ -5,7 +5,7 @@ dispatched at once from one process (from two threads, or on two host
 devices) did not run side by side here: they deadlocked. So a run's flat
 batch (lanes x replicates, lane-major) is cut into ``workers`` contiguous
 blocks, and each block runs in its own Python process started as
-``python -m assimbench.twin.block_workers``. A worker re-plans the run from
+``python -m assimbench.twin.worker_process``. A worker re-plans the run from
 its resolved config (planning is deterministic), keeps its block's slice of
 the replicate keys and traced settings, compiles its own program and sends
 every chunk's outputs back through its stdout pipe (pickled numpy arrays).
@@ -26,11 +26,9 @@ corrupt the frames.
 
 import os
 import pickle
-import signal
 import subprocess
 import sys
 import tempfile
-import time
 
 import numpy as np
 
@@ -77,7 +75,7 @@ class BlockWorkers:
         try:
             for first, stop in self.spans:
                 log = tempfile.TemporaryFile()
-                process = subprocess.Popen([sys.executable, "-m", "assimbench.twin.block_workers"],
+                process = subprocess.Popen([sys.executable, "-m", "assimbench.twin.worker_process"],
                                            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=log, env=environment)
                 self.processes.append(process)
                 self.logs.append(log)
@@ -122,47 +120,3 @@ class BlockWorkers:
                 process.stdout.close()
         for log in self.logs:
             log.close()
-
-
-def _send(stream, kind: str, payload) -> None:
-    pickle.dump((kind, payload), stream, protocol=pickle.HIGHEST_PROTOCOL)
-    stream.flush()
-
-
-def _work(config: dict, first: int, stop: int, length: int, stream) -> None:
-    """Plan the run, keep the batch elements first..stop-1, compile, and send every chunk."""
-    from omegaconf import OmegaConf
-
-    from assimbench.compile_cache import switch_on
-    from assimbench.config.plan import resolve
-    from assimbench.twin.runner import block_programs, run_block
-
-    switch_on()
-    plan = resolve(OmegaConf.create(config))
-    tic = time.perf_counter()
-    carry, chunk, keys, settings = block_programs(plan, first, stop, length)
-    _send(stream, "compiled", time.perf_counter() - tic)
-    for outputs in run_block(plan, carry, chunk, keys, settings, length):
-        _send(stream, "chunk", outputs)
-
-
-def main() -> None:
-    """A worker's life: read its job from stdin, send frames on the original stdout.
-
-    Ctrl-C and a scheduler's SIGTERM reach the whole process group: the parent handles them (it
-    stops between chunks and keeps what is done) and then stops its workers; a worker whose parent
-    is gone stops at its next frame (broken pipe)."""
-    for signum in (signal.SIGINT, signal.SIGTERM):
-        signal.signal(signum, signal.SIG_IGN)
-    stream = os.fdopen(os.dup(sys.stdout.fileno()), "wb")
-    os.dup2(sys.stderr.fileno(), sys.stdout.fileno())  # stray prints go to the log, not into the frames
-    job = pickle.load(sys.stdin.buffer)
-    try:
-        _work(*job, stream)
-    except BaseException as err:  # the parent shows this one line and stops the run
-        _send(stream, "error", f"{type(err).__name__}: {str(err).splitlines()[0] if str(err) else ''}")
-        raise SystemExit(1) from None
-
-
-if __name__ == "__main__":  # run as ``python -m``, which imports the package (float64 on) first
-    main()
