@@ -5,7 +5,7 @@ A lane is one combination of values of traced settings, given as lists under
 job then runs 3 lanes x 4 replicates = 12 experiments in one program. With
 several lists the lanes are every combination (the last key varies fastest;
 keys in catalogue order), or, with ``lane_combination=matched``, the lists
-read side by side (lists of one length; lane i takes the i-th value of each:
+read side by side (lists of equal length; lane i takes the i-th value of each:
 a diagonal, or any set of points, such as the tuner's candidates). Every lane of a replicate sees the same truth and
 observations unless a lane key changes them (model settings, the observation
 error), so lane differences are paired.
@@ -69,7 +69,7 @@ COMBINATIONS = ("all", "matched")
 def lane_rows(lists: list, combination: str = "all") -> list:
     """The lanes of value lists, one tuple per lane: every combination (``all``; the last list varies
     fastest), or the lists read side by side (``matched``: lane i takes the i-th value of each list;
-    the lists have one length, see :func:`check_lane_lists`)."""
+    the lists have equal lengths, see :func:`check_lane_lists`)."""
     return list(zip(*lists)) if combination == "matched" else list(itertools.product(*lists))
 
 
@@ -105,7 +105,7 @@ def hull_values(grid: LaneGrid, widest: set) -> np.ndarray:
 def check_lane_lists(given: list, traced: dict, names: dict, climatology_section: str | None,
                      combination: str = "all") -> None:
     """Lane lists must be non-empty, name traced settings of the chosen components and, when
-    ``combination`` is ``matched``, have one length.
+    ``combination`` is ``matched``, have equal lengths.
 
     traced: section -> the chosen component's traced keys; names: section -> a
     description of the chosen component ("filter etkf"); climatology_section:
@@ -127,7 +127,7 @@ def check_lane_lists(given: list, traced: dict, names: dict, climatology_section
     if combination == "matched" and len({len(values) for _, values in given}) > 1:
         lengths = ", ".join(f"lanes.{key} {len(values)}" for key, values in given)
         raise ConfigError(f"lanes: lists of different lengths ({lengths}) are not allowed with "
-                          "lane_combination=matched: lists of one length (lane i takes the i-th value of each)")
+                          "lane_combination=matched: lists of equal length (lane i takes the i-th value of each)")
     if combination == "matched":
         size = len(given[0][1]) if given else 1
     else:

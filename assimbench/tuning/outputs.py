@@ -203,10 +203,9 @@ def landscape(data: dict, path: str) -> str:
             bar.set_label(f"time-mean {objective} ({STATE_UNITS})")
             ax.legend(fontsize=7.5, loc="upper left", bbox_to_anchor=(0.0, -0.15))  # below: never over the points
         members = f", {data['members']} members" if data["members"] else ""
-        ax.set_title(f"Searched: {filter_word(data['filter'])}{members} ({data['passes']} passes, "
-                     f"{data['spent']:,} run-cycles; larger dots: later passes)" if len(axes) > 1 else
-                     f"Searched: {filter_word(data['filter'])}{members} ({data['passes']} passes, "
-                     f"{data['spent']:,} run-cycles)", fontsize=9)
+        passes = f"{data['passes']} pass{'es' if data['passes'] != 1 else ''}"
+        ax.set_title(f"Searched: {filter_word(data['filter'])}{members}\n({passes}, {data['spent']:,} run-cycles"
+                     + ("; larger dots: later passes)" if len(axes) > 1 else ")"), fontsize=9)
         return save_png(fig, path)
 
 
