@@ -124,13 +124,11 @@ def check_lane_lists(given: list, traced: dict, names: dict, climatology_section
         if section == climatology_section:
             raise ConfigError(f"lanes.{key} is not allowed with {names['filter']}: its static parts come from "
                               "the forecast model's climatology; sweep model settings with --multirun")
-    if combination == "matched" and len({len(values) for _, values in given}) > 1:
-        lengths = ", ".join(f"lanes.{key} {len(values)}" for key, values in given)
-        raise ConfigError(f"lanes: lists of different lengths ({lengths}) are not allowed with "
+    lengths = [len(values) for _, values in given]
+    if combination == "matched" and len(set(lengths)) > 1:
+        listed = ", ".join(f"lanes.{key} {len(values)}" for key, values in given)
+        raise ConfigError(f"lanes: lists of different lengths ({listed}) are not allowed with "
                           "lane_combination=matched: lists of equal length (lane i takes the i-th value of each)")
-    if combination == "matched":
-        size = len(given[0][1]) if given else 1
-    else:
-        size = int(np.prod([len(values) for _, values in given])) if given else 1
+    size = (lengths[0] if combination == "matched" else int(np.prod(lengths))) if given else 1
     if size > MAX_LANES:
         raise ConfigError(f"lanes: {size} lanes is not allowed: at most {MAX_LANES} in one job")

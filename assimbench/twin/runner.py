@@ -137,26 +137,32 @@ def run_block(plan, carry, chunk, keys, settings, length: int):
         yield {name: np.asarray(values[:, :keep]) for name, values in jax.device_get(out).items()}
 
 
-def _in_process(plan, length: int, timing: dict):
-    """Every chunk's outputs of the whole batch, run in this process."""
+def _in_process(plan, length: int) -> tuple:
+    """(compile seconds, every chunk's outputs of the whole batch), run in this process."""
     tic = time.perf_counter()
     programs = block_programs(plan, 0, plan.lanes * plan.replicates, length)
-    timing["compile"] = time.perf_counter() - tic
-    yield
-    yield from run_block(plan, *programs, length)
+    return time.perf_counter() - tic, run_block(plan, *programs, length)
 
 
-def _in_workers(plan, length: int, workers: int, timing: dict):
-    """Every chunk's outputs of the whole batch, run in ``workers`` processes (see block_workers)."""
-    config = OmegaConf.to_container(plan.config, resolve=True)
-    pool = BlockWorkers(config, plan.lanes * plan.replicates, workers, length)
+def _in_workers(plan, length: int, workers: int) -> tuple:
+    """(longest compile seconds, every chunk's outputs of the whole batch), run in ``workers``
+    processes (see block_workers); closing the outputs stops the workers."""
+    pool = BlockWorkers(OmegaConf.to_container(plan.config, resolve=True), plan.lanes * plan.replicates, workers,
+                        length)
     try:
-        timing["compile"] = pool.compiled()
-        yield
-        for _ in range(1, plan.cycles + 1, length):
-            yield pool.next_chunk()
-    finally:
+        seconds = pool.compiled()
+    except BaseException:
         pool.close()
+        raise
+
+    def joined():
+        try:
+            for _ in range(1, plan.cycles + 1, length):
+                yield pool.next_chunk()
+        finally:
+            pool.close()
+
+    return seconds, joined()
 
 
 def _chunks(plan, outputs, clock: list):
@@ -201,9 +207,7 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
     count_names = [n for n, lay in plan.layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "rank"]
     length = min(plan.chunk_cycles, plan.cycles)
     workers = worker_count(plan.workers, plan.lanes * plan.replicates, plan.cycles)
-    timing = {}
-    outputs = _in_workers(plan, length, workers, timing) if workers > 1 else _in_process(plan, length, timing)
-    next(outputs)  # compiled (in this process or in every worker)
+    compile_seconds, outputs = _in_workers(plan, length, workers) if workers > 1 else _in_process(plan, length)
     startup_seconds = time.perf_counter() - started
     means = MeansSink(plan, scalar_names + count_names, keep_series)
     monitor = DivergenceMonitor(plan, scalar_names)
@@ -225,7 +229,7 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
             "climatological_std": float(plan.climate_stds[0]) if plan.lanes == 1 else plan.climate_stds,
             "divergence_patience": plan.patience,
             "interval_method": "batch means, 20 batches after burn-in, Student t 95%",
-            "compile_seconds": timing["compile"],
+            "compile_seconds": compile_seconds,
             "workers": workers,
             "startup_seconds": startup_seconds,
             "run_seconds": clock[0],
