@@ -179,7 +179,8 @@ def format_summary(result, path, title: str) -> str:
         lines.append(f"  {'spread / RMSE':<20}{s['spread_skill_ratio_forecast']:>22.4f}"
                      f"{s['spread_skill_ratio_analysis']:>22.4f}   (ratio of the time means)")
     for label, name in (("innovation ratio", "innovation_ratio"), ("Desroziers R", "desroziers_r"),
-                        ("Desroziers HBH^T", "desroziers_hbht"), ("ESS", "ess")):
+                        ("Desroziers HBH^T", "desroziers_hbht"), ("ESS", "ess"),
+                        ("Gauss-Newton steps", "iterations"), ("members x intervals", "model_integrations")):
         if name in s:
             lines.append(f"  {label:<20}{_cell(s, name)}")
     if climate is not None:

@@ -33,7 +33,7 @@ class Choice(NamedTuple):
     def diagnostic_groups(self, node) -> tuple:
         """The optional diagnostic groups this filter can give."""
         spec = self.filter
-        return available_groups(spec.members(node), spec.weighted, spec.reports_inflation(node))
+        return available_groups(spec.members(node), spec.weighted, spec.reports_inflation(node), spec.iterative)
 
 
 def _chosen(specs: dict, name, key: str, group: str):

@@ -112,6 +112,7 @@ class FilterSpec:
     (a localization window, or a piece switched on when any lane uses it);
     members(node) -> ensemble size; weighted: a weighted ensemble;
     reports_inflation(node) -> whether info carries an inflation series;
+    iterative: info carries ``iterations`` and ``model_integrations`` per cycle;
     climatology: its static parts come from the forecast model's climatology;
     assimilates: False for reference runs (no divergence rule applies);
     kalman_exact: on a linear Gaussian problem, without localization and
@@ -130,6 +131,7 @@ class FilterSpec:
     members: Callable = lambda node: int(node.members)
     weighted: bool = False
     reports_inflation: Callable = lambda node: False
+    iterative: bool = False
     climatology: bool = False
     assimilates: bool = True
     kalman_exact: bool = False

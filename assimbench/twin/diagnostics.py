@@ -22,7 +22,8 @@ import jax.numpy as jnp
 import numpy as np
 
 # Optional groups of series; the four RMSE/spread series are always stored.
-OPTIONAL = ("spread_skill", "crps", "rank_histogram", "innovation", "desroziers", "ess", "increment", "inflation")
+OPTIONAL = ("spread_skill", "crps", "rank_histogram", "innovation", "desroziers", "ess", "increment", "inflation",
+            "iterations")
 
 
 class Series(NamedTuple):
@@ -64,18 +65,24 @@ def series_catalogue(groups, members: int) -> dict:
         out["ess"] = Series("effective sample size 1 / sum(w^2) after the weight update", "members")
     if "inflation" in groups:
         out["inflation"] = Series("anomaly inflation factor the analysis used (adaptive) or implied (EnKF-N)", "1")
+    if "iterations" in groups:
+        out["iterations"] = Series("Gauss-Newton steps of the window search this cycle (0: no analysis)", "1")
+        out["model_integrations"] = Series(
+            "forecast-model integrations this cycle, in member-intervals (one member over one analysis interval)",
+            "member-intervals")
     if "increment" in groups:
         out["increment_norm"] = Series("root mean square over variables of the analysis increment of the mean", "state units")
     return out
 
 
-def available_groups(members: int, weighted: bool, reports_inflation: bool = False) -> tuple:
+def available_groups(members: int, weighted: bool, reports_inflation: bool = False, iterative: bool = False) -> tuple:
     """The optional groups a filter of this kind can give."""
     if members == 1:
         return ("desroziers", "increment")
     groups = ["spread_skill", "crps", "innovation", "desroziers", "increment"]
     groups += ["ess"] if weighted else ["rank_histogram"]
     groups += ["inflation"] if reports_inflation else []
+    groups += ["iterations"] if iterative else []
     return tuple(g for g in OPTIONAL if g in groups)
 
 
@@ -224,6 +231,9 @@ def make_cycle_diagnostics(groups, operator, weighted: bool):
             out["ess"] = info["ess"]
         if "inflation" in groups:
             out["inflation"] = info["inflation"]
+        if "iterations" in groups:
+            out["iterations"] = info["iterations"]
+            out["model_integrations"] = info["model_integrations"]
         if "increment" in groups:
             out["increment_norm"] = rmse(mean_a, mean_f)
         return out

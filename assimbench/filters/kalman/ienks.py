@@ -1,0 +1,247 @@
+"""Iterative ensemble Kalman smoother (IEnKS) over a sliding window; window 1 is the iterative EnKF.
+
+A window of L analysis intervals starts at t_0 with the ensemble E_0 (N, n),
+mean x_0, anomalies A_0 = E_0 - x_0 (rows). Its state at t_0 is searched in
+the span of the anomalies, x_0(w) = x_0 + w A_0 with w (N,), minimising
+(Sakov, Oliver & Bertino 2012, Mon. Wea. Rev. 140, eq. 5-10; Bocquet & Sakov
+2012, Nonlin. Processes Geophys. 19; 2014, Q. J. R. Meteorol. Soc. 140,
+1521-1535, citation from memory)
+
+    J(w) = (N - 1)/2 |w|^2 + 1/2 sum_j m_j |y_j - h(M_j(x_0(w)))|^2_{R^-1},
+
+M_j the forecast model over j intervals, m_j = 1 for the observations this
+analysis assimilates. Gauss-Newton in ensemble space, from w = 0, T = I:
+
+    E     = x_0(w) + T A_0             (transform variant; bundle: x_0(w) + eps A_0)
+    Z_j   = h(M_j(E)),  zbar_j its member mean, Z'_j = Z_j - zbar_j          (N, p)
+    S_j   = T^-1 Z'_j                  (bundle: Z'_j / eps), the sensitivities
+    H     = (N - 1) I + sum_j m_j S_j R^-1 S_j^T                             (N, N)
+    grad  = (N - 1) w - sum_j m_j S_j R^-1 (y_j - zbar_j)
+    w    <- w - H^-1 grad,             T <- sqrt(N - 1) H^(-1/2)
+
+until the increment is small, sqrt(N - 1) rms(dw) < ``tolerance`` (dw in units
+of its prior standard deviation, since w ~ N(0, I / (N - 1)) a priori), or
+after ``max_iterations`` steps. The analysis at t_0 is then
+E_0* = x_0(w) + sqrt(N - 1) H^(-1/2) A_0, the ETKF's symmetric transform with
+the last H. With a linear model and operator the first step lands on the
+minimum, and for L = 1 the analysis at t_1 is the ETKF's (tested).
+
+Cycling (single data assimilation, shift S <= L). Every cycle adds its
+observation to the window; once S observations wait (``pending``), the
+analysis assimilates exactly those S (the latest ones; the earlier ones of
+the window were assimilated by earlier analyses, so each observation counts
+once), and the members at the current time are M_held(E_0*). The window then
+slides so that the next S observations fit in it: by m = held - (L - S)
+intervals when that is positive (its new start is M_m(E_0*), a smoothed
+ensemble), otherwise not at all (while it fills during the first cycles its
+start stays, with E_0* as its new prior). Between analyses the members are
+forecast as for every filter. The inflation pieces act on the window-start
+ensemble: the prior side on E_0 before the search, RTPP and RTPS on E_0*
+(with a linear model, inflating A_0 is inflating the forecast anomalies).
+
+Cost: every iteration integrates the N members over the whole window (L
+intervals: fixed shapes), and the analysed ensemble once more; the
+``iterations`` diagnostics report both per cycle.
+"""
+
+from dataclasses import dataclass
+from typing import NamedTuple
+
+import jax
+import jax.numpy as jnp
+
+from assimbench.config.spec import FilterSpec, floats
+from assimbench.filters.base import Filter
+from assimbench.filters.kalman.inflation import (
+    INFLATION_KEYS,
+    WIDEST,
+    InflationConfig,
+    check_inflation,
+    inflation_pieces,
+    with_inflation,
+)
+from assimbench.filters.kalman.precision_solvers import check_transform_solver, solve_precision
+from assimbench.integrators import make_model_flow
+
+VARIANTS = ("transform", "bundle")
+
+
+class IEnKSState(NamedTuple):
+    """members (N, n) the ensemble at the current time; start (N, n) the window's start ensemble;
+    obs (L, p) the observations after the start, oldest first (obs[j] at start + j + 1 intervals);
+    held: how many of them are real; pending: how many of those wait for an analysis (int32 each)."""
+
+    members: jax.Array
+    start: jax.Array
+    obs: jax.Array
+    held: jax.Array
+    pending: jax.Array
+
+
+def forecast_window(ensemble: jax.Array, advance, operator, params, length: int):
+    """The members (N, n) forecast over ``length`` intervals: states (L, N, n) and their images (L, N, p)."""
+
+    def step(x, _):
+        x = advance(x, params)
+        return x, (x, operator(x))
+
+    _, (states, observed) = jax.lax.scan(step, ensemble, None, length=length)
+    return states, observed
+
+
+def window_search(prior: jax.Array, obs: jax.Array, mask: jax.Array, error_var, advance, operator, params,
+                  max_iterations: int, tolerance, variant: str = "transform", bundle_scale=1e-4,
+                  solver: str = "eigh"):
+    """Minimise J(w) by Gauss-Newton in ensemble space (module docstring): (E_0* (N, n), iterations).
+
+    prior: E_0 (N, n), inflation already applied; obs (L, p) and mask (L,) the
+    window's observations and which of them this analysis assimilates;
+    error_var: R = diag(error_var), a scalar or (p,); advance(x, params): one
+    analysis interval of the forecast model on members (N, n); operator:
+    h on the last axis; iterations (int32): Gauss-Newton steps taken.
+    """
+    members = prior.shape[0]
+    floor = members - 1.0
+    mean = prior.mean(axis=0)
+    anomalies = prior - mean
+    eye = jnp.eye(members)
+
+    def gauss_newton(carry):
+        w, transform, inverse_transform, _, count, _ = carry
+        spread = bundle_scale * anomalies if variant == "bundle" else transform @ anomalies
+        _, observed = forecast_window(mean + w @ anomalies + spread, advance, operator, params, obs.shape[0])
+        obs_mean = observed.mean(axis=1)  # (L, p)
+        deviations = observed - obs_mean[:, None, :]
+        if variant == "bundle":
+            sensitivities = deviations / bundle_scale
+        else:
+            sensitivities = jnp.einsum("ij,ljp->lip", inverse_transform, deviations)
+        weighted = mask[:, None, None] * sensitivities / error_var  # m_j S_j R^-1, (L, N, p)
+        hessian = floor * eye + jnp.einsum("lip,ljp->ij", weighted, sensitivities)
+        gradient = floor * w - jnp.einsum("lip,lp->i", weighted, obs - obs_mean)
+        solved = solve_precision(hessian, floor, solver)
+        increment = -solved.apply_inverse(gradient)
+        new_transform = solved.inverse_root(jnp.sqrt(floor))
+        # T^-1 = H^(1/2) / sqrt(N - 1) = H T / (N - 1): no second root needed.
+        size = jnp.sqrt(floor * jnp.mean(increment**2))
+        return w + increment, new_transform, hessian @ new_transform / floor, hessian, count + 1, size
+
+    def unfinished(carry):
+        *_, count, size = carry
+        return (count < max_iterations) & (size >= tolerance)
+
+    start = (jnp.zeros(members), eye, eye, floor * eye, jnp.asarray(0, jnp.int32), jnp.asarray(jnp.inf))
+    w, _, _, hessian, count, _ = jax.lax.while_loop(unfinished, gauss_newton, start)
+    root = solve_precision(hessian, floor, solver).inverse_root(jnp.sqrt(floor))
+    return mean + w @ anomalies + root @ anomalies, count
+
+
+def make_ienks(model, operator, members: int, window: int, shift: int, max_iterations: int, variant: str,
+               steps_per_interval: int, pieces=frozenset(), solver: str = "eigh") -> Filter:
+    """The IEnKS of the module docstring with the forecast ``model``; settings["filter"] carries the
+    inflation pieces, ``tolerance`` and ``bundle_scale``."""
+    if not 1 <= shift <= window:
+        raise ValueError(f"the shift must be from 1 to the window ({window}), got {shift}")
+    if variant not in VARIANTS:
+        raise ValueError(f"unknown IEnKS variant {variant!r}; known: {VARIANTS}")
+    advance = make_model_flow(model, steps_per_interval, ensemble=True)
+    p = operator.size
+
+    def search(key, prior, window_obs, settings):
+        del key  # deterministic
+        obs, mask = window_obs
+        f = settings["filter"]
+        analysed, iterations = window_search(prior, obs, mask, settings["observation"]["error_std"] ** 2, advance,
+                                             operator, settings["forecast_model"], max_iterations, f["tolerance"],
+                                             variant, f["bundle_scale"], solver)
+        return analysed, iterations
+
+    inflated_search = with_inflation(search, pieces)
+
+    def init(key, initial_ensemble, settings):
+        del key, settings
+        zero = jnp.asarray(0, jnp.int32)
+        return IEnKSState(members=initial_ensemble, start=initial_ensemble, obs=jnp.zeros((window, p)),
+                          held=zero, pending=zero)
+
+    def analyse(key, state, y, settings):
+        held, pending = state.held + 1, state.pending + 1
+        obs = state.obs.at[state.held].set(y)
+
+        def assimilate(_):
+            positions = jnp.arange(window)
+            mask = ((positions >= held - pending) & (positions < held)).astype(jnp.float64)
+            analysed_start, iterations = inflated_search(key, state.start, (obs, mask), settings)
+            trajectory, _ = forecast_window(analysed_start, advance, operator, settings["forecast_model"], window)
+            # Slide so that the next `shift` observations fit: m = held - (L - S) intervals, if positive.
+            slide = jnp.maximum(held - (window - shift), 0)
+            new_start = jnp.where(slide > 0, trajectory[jnp.maximum(slide - 1, 0)], analysed_start)
+            current = trajectory[held - 1]
+            integrations = (iterations + 1) * window * members
+            return (IEnKSState(members=current, start=new_start, obs=jnp.roll(obs, -slide, axis=0),
+                               held=held - slide, pending=jnp.asarray(0, jnp.int32)),
+                    iterations, integrations)
+
+        def wait(_):
+            nothing = jnp.asarray(0, jnp.int32)
+            return state._replace(obs=obs, held=held, pending=pending), nothing, nothing
+
+        new_state, iterations, integrations = jax.lax.cond(pending == shift, assimilate, wait, None)
+        # The cycle's own forecast of the members counts too: N member-intervals.
+        info = {"iterations": iterations, "model_integrations": jnp.asarray(integrations + members, jnp.float64)}
+        return new_state, info
+
+    return Filter(name="ienks", members=members, init=init, analyse=analyse)
+
+
+@dataclass
+class IEnKSConfig(InflationConfig):
+    """Iterative ensemble Kalman smoother: a window of ``window`` analysis intervals sliding by ``shift``
+    (window = shift = 1: the iterative EnKF); Gauss-Newton in ensemble space for at most
+    ``max_iterations`` steps, stopped when the increment's rms in prior standard deviations is below
+    ``tolerance``; ``variant`` transform (anomalies rescaled by the last transform) or bundle
+    (anomalies scaled by ``bundle_scale``, a finite-difference step); transform_solver as for the ETKF."""
+
+    name: str = "ienks"
+    window: int = 1
+    shift: int = 1
+    max_iterations: int = 10
+    tolerance: float = 1e-3
+    variant: str = "transform"
+    bundle_scale: float = 1e-4
+    transform_solver: str = "eigh"
+
+
+def _check(c, model) -> None:
+    check_inflation(c)
+    window = c.integer("window", 1, "an integer >= 1 (analysis intervals)")
+    c.integer("shift", 1, "an integer >= 1 (analysis intervals)")
+    if int(c.node.shift) > window:
+        c.fail("shift", c.node.shift, f"an integer from 1 to the window ({window})")
+    c.integer("max_iterations", 1, "an integer >= 1")
+    c.real("tolerance", "a finite number > 0", minimum=0.0)
+    if c.node.variant not in VARIANTS:
+        c.fail("variant", c.node.variant, " or ".join(VARIANTS))
+    c.real("bundle_scale", "a finite number > 0", minimum=0.0)
+    check_transform_solver(c)
+
+
+TRACED = INFLATION_KEYS + ("tolerance", "bundle_scale")
+
+
+def _build(node, ctx) -> Filter:
+    return make_ienks(ctx.model, ctx.operator, int(node.members), int(node.window), int(node.shift),
+                      int(node.max_iterations), str(node.variant), ctx.steps_per_interval, inflation_pieces(node),
+                      str(node.transform_solver))
+
+
+SPEC = FilterSpec(
+    name="ienks",
+    schema=IEnKSConfig,
+    build=_build,
+    settings=lambda node: floats(node, TRACED),
+    check=_check,
+    traced=TRACED,
+    widest=WIDEST,
+    iterative=True,
+)
