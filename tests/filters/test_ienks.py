@@ -127,17 +127,3 @@ def test_bad_window_settings_are_one_line(override, message):
     with pytest.raises(ConfigError) as caught:
         resolve(compose_config(["filter=ienks", "filter.window=2", override]))
     assert str(caught.value) == message
-
-
-def test_iterating_beats_the_tuned_etkf_where_error_growth_is_strongly_nonlinear():
-    """Lorenz-63 observed every 0.25 time units with R = 2 I, 3 members: the iterative EnKF's analysis
-    error is well below the ETKF's at the ETKF's best inflation on the same truths (Sakov, Oliver &
-    Bertino 2012, Mon. Wea. Rev. 140, sec. 5: a large gain in this regime; from memory). The card
-    experiments/published/l63_ienkf_3.yaml holds the long form with its band."""
-    common = ["model=lorenz63", "filter.members=3", "observation.interval=0.25",
-              "observation.error_std=1.4142135623730951", "cycles=1500", "burn_in=300", "replicates=2",
-              "diagnostics=[]", "output=null"]
-    iterative = assimbench.run(common + ["filter=ienks", "filter.inflation=1.1"])
-    etkf = assimbench.run(common + ["filter=etkf", "lanes.filter.inflation=[1.2,1.3,1.4,1.5]"])
-    best_etkf = float(np.min(etkf.summary["rmse_analysis"]))
-    assert iterative.summary["rmse_analysis"] < 0.6 * best_etkf
