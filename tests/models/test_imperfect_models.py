@@ -115,8 +115,9 @@ def test_letkf_tracks_kuramoto_sivashinsky_far_below_the_observation_error():
     assert letkf.summary["rmse_analysis"] < 0.1 * free.summary["rmse_analysis"]
 
 
-def test_every_demo_model_error_study_composes_and_validates():
-    """The demo studies of experiments/model_error/ stay runnable as the config schema evolves."""
+def test_every_demo_paired_study_composes_and_validates():
+    """The demo studies (experiments/model_error/, experiments/iterative/) stay runnable as the config
+    schema evolves."""
     import glob
     import importlib.util
     import os
@@ -124,11 +125,11 @@ def test_every_demo_model_error_study_composes_and_validates():
     from assimbench.config.composition import compose_config
 
     root = os.path.join(os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__)))), "experiments")
-    spec = importlib.util.spec_from_file_location("model_error", os.path.join(root, "model_error.py"))
+    spec = importlib.util.spec_from_file_location("paired_study", os.path.join(root, "paired_study.py"))
     script = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(script)
-    paths = sorted(glob.glob(os.path.join(root, "model_error", "*.yaml")))
-    assert len(paths) >= 2
+    paths = sorted(path for folder in script.FOLDERS for path in glob.glob(os.path.join(folder, "*.yaml")))
+    assert len(paths) >= 3
     for path in paths:
         study = script.load_study(path)
         for overrides in study["arms"].values():
