@@ -112,6 +112,9 @@ def settings_line(config: dict, lane_keys=()) -> str:
     text = "; ".join(f"{setting_word('filter.' + k)} {value_text(v)}" for k, v in shown)
     if laned:
         text += ("; " if text else "") + "by lane: " + ", ".join(setting_word("filter." + k) for k in laned)
+    lag = int(config.get("smoother", {}).get("lag", 0))
+    if lag:
+        text += ("; " if text else "") + f"fixed-lag smoother over {lag} cycle{'s' if lag > 1 else ''}"
     return text or "none to tune"
 
 
@@ -175,6 +178,12 @@ def format_summary(result, path, title: str) -> str:
     for label, stem in (("RMSE", "rmse"), ("spread", "spread"), ("CRPS", "crps"), ("CRPS (fair)", "crps_fair")):
         if f"{stem}_analysis" in s:
             lines.append(f"  {label:<20}{_cell(s, stem + '_forecast')}{_cell(s, stem + '_analysis')}")
+    lags = sorted(int(name[len("rmse_smoothed_lag"):]) for name in s
+                  if name.startswith("rmse_smoothed_lag") and name[len("rmse_smoothed_lag"):].isdigit())
+    if lags:
+        lines.append(f"  {'smoothed, lag':<20}{'RMSE':>22}{'spread':>22}")
+        lines += [f"  {lag:>13}{'':<7}{_cell(s, f'rmse_smoothed_lag{lag}')}{_cell(s, f'spread_smoothed_lag{lag}')}"
+                  for lag in lags]
     if "spread_skill_ratio_analysis" in s:
         lines.append(f"  {'spread / RMSE':<20}{s['spread_skill_ratio_forecast']:>22.4f}"
                      f"{s['spread_skill_ratio_analysis']:>22.4f}   (ratio of the time means)")

@@ -9,12 +9,12 @@ Nothing here builds a component or touches a file.
 import dataclasses
 from typing import NamedTuple
 
-from omegaconf import DictConfig
+from omegaconf import DictConfig, OmegaConf
 
 from assimbench.config.catalogue import Catalogue, catalogue
 from assimbench.config.checks import ConfigError, NodeChecks, fail
 from assimbench.config.lanes import COMBINATIONS, check_lane_lists, given_lanes, lane_rows, plain_config, with_values
-from assimbench.config.schema import ExperimentBase, StoreConfig
+from assimbench.config.schema import ExperimentBase, SmootherConfig, StoreConfig
 from assimbench.config.spec import FilterSpec, ModelFacts
 from assimbench.integrators import steps_per_cycle
 from assimbench.twin.diagnostics import OPTIONAL, available_groups
@@ -112,6 +112,19 @@ def _check_run(cfg) -> None:
     c.real("initial_spread", "a finite standard deviation >= 0", minimum=0.0, strict=False)
 
 
+def _check_smoother(cfg, choice) -> None:
+    """smoother.lag: an integer >= 0, above 0 only beside a filter that can carry the smoother."""
+    lag = NodeChecks(cfg.smoother, "smoother").integer("lag", 0, "an integer >= 0 (cycles; 0 = off)")
+    if lag > 0 and not choice.filter.smoothable(cfg.filter):
+        able = [name for name, spec in catalogue().filters.items() if spec.smoothable(_default_node(spec))]
+        fail("smoother.lag", lag, f"0 with filter {choice.filter.name}; a fixed-lag smoother goes beside "
+             + ", ".join(able) + " (without adaptive inflation)")
+
+
+def _default_node(spec):
+    return OmegaConf.structured(spec.schema)
+
+
 def _check_outputs(cfg) -> None:
     NodeChecks(cfg.store, "store").integer("ensemble_every", 0, "an integer >= 0 (0 = never)")
     c = NodeChecks(cfg, "")
@@ -162,7 +175,7 @@ def _check_lanes(cfg, choice: Choice, cat: Catalogue) -> None:
 
 def _check_known_keys(cfg, specs: dict) -> None:
     """Every key must be one of its node's schema (``+filter.foo=1`` adds a key Hydra accepts)."""
-    schemas = {"": ExperimentBase, "store": StoreConfig, **{section: spec.schema for section, spec in specs.items()}}
+    schemas = {"": ExperimentBase, "store": StoreConfig, "smoother": SmootherConfig, **{section: spec.schema for section, spec in specs.items()}}
     for section, schema in schemas.items():
         node = cfg[section] if section else cfg
         allowed = {f.name for f in dataclasses.fields(schema)} | ({"lanes"} if not section else set())
@@ -190,6 +203,7 @@ def check(cfg: DictConfig) -> Choice:
     _check_run(cfg)
     choice = Choice(model, forecast, filter_spec, truth, forecaster, given_lanes(cfg, cat.lane_keys()))
     _check_diagnostics(cfg, choice)
+    _check_smoother(cfg, choice)
     _check_outputs(cfg)
     _check_lanes(cfg, choice, cat)
     return choice

@@ -17,6 +17,7 @@ import jax.numpy as jnp
 import numpy as np
 from omegaconf import DictConfig, OmegaConf
 
+from assimbench.filters.smoother import with_fixed_lag
 from assimbench.config.catalogue import catalogue
 from assimbench.config.choice import Choice, check
 from assimbench.config.lanes import LaneGrid, hull_values, lane_grid, plain_config, with_values
@@ -88,6 +89,9 @@ def build_setup(cfg, choice: Choice) -> TwinSetup:
     interval = float(cfg.observation.interval)
     forecast_steps = steps_per_cycle(interval, forecaster.dt)
     filt = choice.filter.build(cfg.filter, FilterContext(forecaster, operator, forecast_steps))
+    lag = int(cfg.smoother.lag)
+    if lag > 0:
+        filt = with_fixed_lag(filt, lag)
     available = choice.diagnostic_groups(cfg.filter)
     groups = available if cfg.diagnostics is None else tuple(g for g in available if g in cfg.diagnostics)
     wanted = {name: bool(cfg.store[name]) for name in FIELDS if name != "analysis_ensemble"}
@@ -103,6 +107,7 @@ def build_setup(cfg, choice: Choice) -> TwinSetup:
         forecast_model=forecaster if imperfect else None,
         forecast_steps=forecast_steps if imperfect else 0,
         truth_noise=float(cfg.truth_noise_std) > 0.0,
+        smoother_lag=lag,
     )
 
 

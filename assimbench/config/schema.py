@@ -29,6 +29,14 @@ class StoreConfig:
 
 
 @dataclass
+class SmootherConfig:
+    """A fixed-lag ensemble smoother beside the filter: lag K smooths the ensembles of the last K
+    cycles with every analysis (0 = off)."""
+
+    lag: int = 0
+
+
+@dataclass
 class ExperimentBase:
     """A whole twin experiment (the lanes are added from the catalogue: :func:`experiment_schema`).
 
@@ -73,6 +81,7 @@ class ExperimentBase:
     output: str | None = "result.h5"
     diagnostics: list[str] | None = None
     store: StoreConfig = field(default_factory=StoreConfig)
+    smoother: SmootherConfig = field(default_factory=SmootherConfig)
     divergence_factor: float = 1.0
     divergence_patience: int = 50
 

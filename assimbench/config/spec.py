@@ -113,6 +113,8 @@ class FilterSpec:
     members(node) -> ensemble size; weighted: a weighted ensemble;
     reports_inflation(node) -> whether info carries an inflation series;
     iterative: info carries ``iterations`` and ``model_integrations`` per cycle;
+    smoothable(node) -> whether the built filter can carry a fixed-lag smoother
+    (``Filter.analyse_lagged``);
     climatology: its static parts come from the forecast model's climatology;
     assimilates: False for reference runs (no divergence rule applies);
     kalman_exact: on a linear Gaussian problem, without localization and
@@ -132,6 +134,7 @@ class FilterSpec:
     weighted: bool = False
     reports_inflation: Callable = lambda node: False
     iterative: bool = False
+    smoothable: Callable = lambda node: False
     climatology: bool = False
     assimilates: bool = True
     kalman_exact: bool = False

@@ -26,6 +26,11 @@ class Filter(NamedTuple):
     weighted: bool = False
     assimilates: bool = True  # False for reference runs: no divergence rule applies
     reports_inflation: bool = False  # info["inflation"]: the anomaly factor estimated or implied per cycle
+    # analyse_lagged(key, state, lagged, y, settings) -> (state, lagged, info): the analysis that also
+    # transforms ``lagged`` (N, m), columns of earlier states, as it transforms the members (same
+    # member weights, local ones at each grid point), with no inflation piece on them. None: the
+    # filter cannot carry a fixed-lag smoother.
+    analyse_lagged: Callable | None = None
 
 
 class EnsembleState(NamedTuple):

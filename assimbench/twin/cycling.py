@@ -60,7 +60,9 @@ class TwinSetup(NamedTuple):
     fields: optional stored fields, a subset of FIELDS; forecast_model: the
     model the filter forecasts with (None: the truth model, a perfect-model
     experiment) and forecast_steps its steps per interval; truth_noise: the
-    truth gets additive model error, N(0, truth_noise_std^2 I) per interval.
+    truth gets additive model error, N(0, truth_noise_std^2 I) per interval;
+    smoother_lag: K > 0 when the filter carries a fixed-lag smoother
+    (:mod:`assimbench.filters.smoother`), whose errors at lags 1 .. K are scored.
     """
 
     model: Model
@@ -72,6 +74,7 @@ class TwinSetup(NamedTuple):
     forecast_model: Model | None = None
     forecast_steps: int = 0
     truth_noise: bool = False
+    smoother_lag: int = 0
 
     @property
     def forecaster(self) -> Model:
@@ -91,6 +94,7 @@ class CycleCarry(NamedTuple):
 
     truth: jax.Array  # (n,) every variable of the truth model
     filter_state: tuple  # the filter's NamedTuple state
+    recent_truth: jax.Array  # (K, r) the resolved truth of the K cycles before, newest first (K = smoother lag)
 
 
 def replicate_keys(seed: int, replicates: int) -> jax.Array:
@@ -126,7 +130,10 @@ def make_start(setup: TwinSetup, batched_settings: bool = False):
         # A reduced forecast model starts from the truth's resolved variables.
         ensemble = truth[: forecaster.size] + settings["initial_spread"] * noise
         filter_key = jax.random.fold_in(jax.random.fold_in(rkey, 3), 0)
-        return CycleCarry(truth=truth, filter_state=setup.filter.init(filter_key, ensemble, settings))
+        # Before cycle K + 1 the smoother's missing earlier states are the initial time's.
+        recent = jnp.broadcast_to(truth[: model.resolved_size], (setup.smoother_lag, model.resolved_size))
+        return CycleCarry(truth=truth, filter_state=setup.filter.init(filter_key, ensemble, settings),
+                          recent_truth=recent)
 
     return jax.jit(jax.vmap(start_one, in_axes=(0, 0 if batched_settings else None)))
 
@@ -164,10 +171,12 @@ def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycl
 
 
 def make_cycle(setup: TwinSetup, scalar_names: list):
-    """Return ``cycle(state, inputs, settings, filter_key) -> (analysed, outputs)``: one forecast of
+    """Return ``cycle(carry, inputs, settings, filter_key) -> (carry, outputs)``: one forecast of
     every member with the forecast model and one analysis, with the cycle's diagnostics and stored
-    fields. ``inputs`` = ((k, rank_noise), truth, y) of cycle k; the scalar diagnostics come out as
-    one packed vector ``_scalars`` in the order of ``scalar_names``."""
+    fields. ``carry`` = (filter state, recent truth (K, r)); ``inputs`` = ((k, rank_noise), truth, y)
+    of cycle k; the scalar diagnostics come out as one packed vector ``_scalars`` in the order of
+    ``scalar_names``; with a smoother, ``rmse_smoothed`` and ``spread_smoothed`` (K,) score the
+    smoothed ensembles of lags 1 .. K against the truth of cycles k - 1 .. k - K."""
     model, filt, forecaster = setup.model, setup.filter, setup.forecaster
     forecast_members = make_model_flow(forecaster, setup.forecaster_steps, ensemble=True)
     resolved = model.resolved_size
@@ -178,7 +187,8 @@ def make_cycle(setup: TwinSetup, scalar_names: list):
     diagnose = make_cycle_diagnostics(setup.diagnostics, setup.operator, filt.weighted)
     fields = setup.fields
 
-    def cycle(state, inputs, settings, filter_key):
+    def cycle(carry, inputs, settings, filter_key):
+        state, recent_truth = carry
         (k, rank_noise), truth, y = inputs
         if filt.runs_model:
             state = state._replace(members=forecast_members(state.members, settings["forecast_model"]))
@@ -195,7 +205,13 @@ def make_cycle(setup: TwinSetup, scalar_names: list):
             out["analysis_mean"] = ensemble_mean_and_spread(scored(analysed))[0]
         if "analysis_ensemble" in fields:
             out["analysis_ensemble"] = scored(analysed).members
-        return analysed, out
+        if setup.smoother_lag:
+            smoothed = analysed.lagged[..., :resolved]  # (K, N, r)
+            errors = smoothed.mean(axis=1) - recent_truth
+            out["rmse_smoothed"] = jnp.sqrt(jnp.mean(errors**2, axis=-1))
+            out["spread_smoothed"] = jnp.sqrt(jnp.mean(jnp.var(smoothed, axis=1, ddof=1), axis=-1))
+            recent_truth = jnp.concatenate([truth[None], recent_truth[:-1]], axis=0)
+        return (analysed, recent_truth), out
 
     return cycle
 
@@ -222,7 +238,7 @@ def make_chunk(setup: TwinSetup, length: int, batched_settings: bool = False):
     """
     filt = setup.filter
     truth_chunk = make_truth_chunk(setup.model, setup.operator, setup.steps_per_cycle, length, setup.truth_noise)
-    catalogue = series_catalogue(setup.diagnostics, filt.members)
+    catalogue = series_catalogue(setup.diagnostics, filt.members, setup.smoother_lag)
     scalar_names = sorted(name for name, series in catalogue.items() if series.extra_dim is None)
     cycle = make_cycle(setup, scalar_names)
 
@@ -239,13 +255,14 @@ def make_chunk(setup: TwinSetup, length: int, batched_settings: bool = False):
             rank_noise = jax.vmap(draw)(cycles).astype(jnp.float64)
         else:
             rank_noise = None
-        state_end, series = jax.lax.scan(lambda state, inputs: cycle(state, inputs, settings, filter_key),
-                                         carry.filter_state, ((cycles, rank_noise), truths, observations))
+        (state_end, recent_end), series = jax.lax.scan(lambda c, inputs: cycle(c, inputs, settings, filter_key),
+                                                       (carry.filter_state, carry.recent_truth),
+                                                       ((cycles, rank_noise), truths, observations))
         series = _unpack(series, scalar_names)
         if "truth" in setup.fields:
             series["truth"] = truths
         if "observations" in setup.fields:
             series["observations"] = observations
-        return CycleCarry(truth=truth_end, filter_state=state_end), series
+        return CycleCarry(truth=truth_end, filter_state=state_end, recent_truth=recent_end), series
 
     return jax.jit(jax.vmap(chunk_one, in_axes=(0, 0, None, 0 if batched_settings else None)))

@@ -34,8 +34,9 @@ class Series(NamedTuple):
     extra_dim: str | None = None  # e.g. "rank" for rank histograms
 
 
-def series_catalogue(groups, members: int) -> dict:
-    """name -> Series for the always-stored series and the chosen optional groups."""
+def series_catalogue(groups, members: int, smoother_lag: int = 0) -> dict:
+    """name -> Series for the always-stored series, the chosen optional groups and, with a fixed-lag
+    smoother, the smoothed errors at lags 1 .. smoother_lag."""
     out = {
         "rmse_forecast": Series("RMSE of the forecast ensemble mean against the truth", "state units"),
         "rmse_analysis": Series("RMSE of the analysis ensemble mean against the truth", "state units"),
@@ -70,6 +71,11 @@ def series_catalogue(groups, members: int) -> dict:
         out["model_integrations"] = Series(
             "forecast-model integrations this cycle, in member-intervals (one member over one analysis interval)",
             "member-intervals")
+    if smoother_lag:
+        out["rmse_smoothed"] = Series("RMSE of the smoothed ensemble mean of the cycle `lag` cycles before, against "
+                                      "its truth", "state units", "lag")
+        out["spread_smoothed"] = Series("spread of the smoothed ensemble of the cycle `lag` cycles before",
+                                        "state units", "lag")
     if "increment" in groups:
         out["increment_norm"] = Series("root mean square over variables of the analysis increment of the mean", "state units")
     return out

@@ -19,9 +19,11 @@ def layouts_of(setup: TwinSetup) -> tuple:
     """(layouts, coordinates) of every dataset this setup stores."""
     members = setup.filter.members
     layouts = {}
-    for name, series in series_catalogue(setup.diagnostics, members).items():
+    for name, series in series_catalogue(setup.diagnostics, members, setup.smoother_lag).items():
         if series.extra_dim is None:
             layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle"))
+        elif series.extra_dim == "lag":
+            layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle", "lag"))
         else:
             layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle", series.extra_dim), np.int32)
     layouts.update({name: FIELD_LAYOUTS[name] for name in setup.fields})
@@ -30,6 +32,7 @@ def layouts_of(setup: TwinSetup) -> tuple:
         "station": setup.operator.indices,
         "member": np.arange(members),
         "rank": np.arange(members + 1),
+        "lag": np.arange(1, setup.smoother_lag + 1),
     }
     used = {d for layout in layouts.values() for d in layout.dims[2:]}
     return layouts, {d: v for d, v in coordinates.items() if d in used}

@@ -53,18 +53,25 @@ class Chunk(NamedTuple):
 
 
 class MeansSink:
-    """Time means after burn-in (with batch-means intervals) and, if asked, the whole series in memory."""
+    """Time means after burn-in (with batch-means intervals) and, if asked, the whole series in memory.
+    A series with a ``lag`` axis, (replicates, L, K), is averaged per lag as ``<name>_lag<l>``."""
 
-    def __init__(self, plan, names: list, keep_series: bool):
+    def __init__(self, plan, names: list, keep_series: bool, lag_names: tuple = ()):
         self.means = TimeMeans(plan.lanes * plan.replicates, plan.cycles, plan.burn_in)
-        self.names = names
-        self.kept = {name: [] for name in names} if keep_series else None
+        self.names = list(names) + list(lag_names)
+        self.lag_names = set(lag_names)
+        self.kept = {name: [] for name in self.names} if keep_series else None
 
     def add(self, chunk: Chunk) -> None:
         for name in self.names:
-            self.means.add(name, chunk.series[name], chunk.first_cycle)
+            values = chunk.series[name]
+            if name in self.lag_names:
+                for lag in range(values.shape[2]):
+                    self.means.add(f"{name}_lag{lag + 1}", values[:, :, lag], chunk.first_cycle)
+            else:
+                self.means.add(name, values, chunk.first_cycle)
             if self.kept is not None:
-                self.kept[name].append(chunk.series[name])
+                self.kept[name].append(values)
 
     def series(self) -> dict:
         return {name: np.concatenate(parts, axis=1) for name, parts in self.kept.items()} if self.kept else {}
@@ -205,11 +212,13 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
     batch = Batch(plan.lanes, plan.replicates, plan.batched)
     scalar_names = [n for n, lay in plan.layouts.items() if lay.dims == ("replicate", "cycle")]
     count_names = [n for n, lay in plan.layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "rank"]
+    lag_names = [n for n, lay in plan.layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "lag"]
+    lagged_means = [f"{n}_lag{lag}" for n in lag_names for lag in plan.coordinates.get("lag", ())]
     length = min(plan.chunk_cycles, plan.cycles)
     workers = worker_count(plan.workers, plan.lanes * plan.replicates, plan.cycles)
     compile_seconds, outputs = _in_workers(plan, length, workers) if workers > 1 else _in_process(plan, length)
     startup_seconds = time.perf_counter() - started
-    means = MeansSink(plan, scalar_names + count_names, keep_series)
+    means = MeansSink(plan, scalar_names + count_names, keep_series, tuple(lag_names))
     monitor = DivergenceMonitor(plan, scalar_names)
     sinks = [means, monitor]
     writer = WriterSink(plan, output, batch) if output is not None else None
@@ -220,7 +229,7 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
         for piece in _chunks(plan, outputs, clock):
             for sink in sinks:
                 sink.add(piece)
-        summary, per_replicate = _summaries(plan, means, scalar_names, batch)
+        summary, per_replicate = _summaries(plan, means, scalar_names + lagged_means, batch)
         first_bad = batch.split(monitor.first_bad)
         finish = {
             "diverged": bool(np.any(first_bad >= 0)),

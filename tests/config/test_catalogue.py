@@ -32,6 +32,7 @@ def test_every_filter_is_selectable_and_built_as_its_spec_says(name):
     assert built.weighted == spec.weighted
     assert built.assimilates == spec.assimilates
     assert built.reports_inflation == spec.reports_inflation(node)
+    assert (built.analyse_lagged is not None) == spec.smoothable(node)  # it can carry a fixed-lag smoother
     assert set(spec.traced) <= set(spec.settings(node)) | {"adaptive_std"}  # adaptive_std is traced only when on
     assert set(spec.widest) <= set(spec.traced)
 

@@ -64,6 +64,9 @@ def make_ensrf(model, operator, members: int, radius: float | None, pieces=froze
             taper = jnp.ones(distance.shape)
         else:
             taper = gaspari_cohn(distance / settings["filter"]["radius"])
+        blocks = prior.shape[1] // size
+        if blocks > 1:  # a fixed-lag smoother's earlier states: each variable tapered at its own grid point
+            taper = jnp.concatenate([jnp.tile(taper[:, :size], (1, blocks)), taper[:, size:]], axis=1)
         return ensrf_analysis(prior, operator(prior), y, error_var, taper), {}
 
     return inflation.ensemble_filter("ensrf", members, update, pieces)
@@ -87,4 +90,5 @@ SPEC = FilterSpec(
     traced=inflation.INFLATION_KEYS + ("radius",),
     widest=inflation.WIDEST + ("radius",),
     kalman_exact=True,
+    smoothable=lambda node: True,
 )

@@ -64,39 +64,56 @@ def with_inflation(update, pieces=frozenset()):
     "additive", "rtpp", "rtps"). They are chosen when the job is built so a
     job that does not use them does not pay for them; their strengths are
     traced (``additive_std``, ``rtpp``, ``rtps``).
+
+    The wrapped ``analyse(key, members, y, settings, lagged=None)`` returns
+    (posterior, info), or with ``lagged`` (N, m), columns of earlier states
+    that ``update`` transforms beside the members (a fixed-lag smoother),
+    (posterior, lagged posterior, info): the pieces act on the members only,
+    since inflation stands for the current forecast's missing spread.
     """
     unknown = set(pieces) - set(PIECES)
     if unknown:
         raise ValueError(f"unknown inflation pieces {sorted(unknown)}; known: {PIECES}")
 
-    def analyse(key, members, y, settings):
+    def analyse(key, members, y, settings, lagged=None):
         f = settings["filter"]
         prior = inflate_anomalies(members, f["inflation"])
         update_key = key
         if "additive" in pieces:  # split only when needed: a split costs a threefry call per cycle
             noise_key, update_key = jax.random.split(key)
             prior = add_centred_noise(noise_key, prior, f["additive_std"])
-        posterior, info = update(update_key, prior, y, settings)
+        if lagged is None:
+            posterior, info = update(update_key, prior, y, settings)
+        else:
+            size = members.shape[1]
+            both, info = update(update_key, jnp.concatenate([prior, lagged], axis=1), y, settings)
+            posterior, lagged = both[:, :size], both[:, size:]
         if "rtpp" in pieces:
             posterior = relax_to_prior_perturbations(prior, posterior, f["rtpp"])
         if "rtps" in pieces:
             posterior = relax_to_prior_spread(prior, posterior, f["rtps"])
-        return posterior, info
+        return (posterior, info) if lagged is None else (posterior, lagged, info)
 
     return analyse
 
 
 def ensemble_filter(name: str, members: int, update, pieces=frozenset(), reports_inflation: bool = False) -> Filter:
     """A Filter from ``update(key, prior, y, settings) -> (posterior, info)`` on (N, n) arrays,
-    with every inflation piece of this module composed around it."""
+    with every inflation piece of this module composed around it. ``update`` must take states of
+    any width whose first n columns are the model state (the observation operator reads only
+    those): the lagged columns of a fixed-lag smoother ride along (``Filter.analyse_lagged``)."""
     analyse_members = with_inflation(update, pieces)
 
     def analyse(key, state, y, settings):
         posterior, info = analyse_members(key, state.members, y, settings)
         return EnsembleState(members=posterior), info
 
+    def analyse_lagged(key, state, lagged, y, settings):
+        posterior, lagged, info = analyse_members(key, state.members, y, settings, lagged)
+        return EnsembleState(members=posterior), lagged, info
+
     return Filter(name=name, members=members, init=keep_ensemble, analyse=analyse,
-                  reports_inflation=reports_inflation)
+                  reports_inflation=reports_inflation, analyse_lagged=analyse_lagged)
 
 
 @dataclass
@@ -142,4 +159,4 @@ def inflation_settings(node) -> dict:
 
 # The spec fields of an ensemble filter whose only settings are the inflation pieces.
 INFLATION_SPEC_FIELDS = {"settings": inflation_settings, "check": lambda c, model: check_inflation(c),
-                         "traced": INFLATION_KEYS, "widest": WIDEST}
+                         "traced": INFLATION_KEYS, "widest": WIDEST, "smoothable": lambda node: True}

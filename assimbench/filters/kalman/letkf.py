@@ -64,7 +64,14 @@ def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight
     matrices (a loop of LAPACK calls) and applies W_g without forming it; ``"newton_schulz"`` forms
     every A_g^-1 and A_g^(-1/2) as one batched chain of matrix products
     (:mod:`assimbench.filters.kalman.precision_solvers`).
+
+    ``members`` may be (N, B n): B blocks of the n grid points, the first the state being analysed
+    and the others earlier states of a fixed-lag smoother, which take grid point g's weights and
+    transform at their own grid point g.
     """
+    n_grid = local_index.shape[0]
+    if members.shape[1] != n_grid:
+        return _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight, solver)
     n_members = members.shape[0]
     space = ensemble_space(members, obs_members, 1.0)
     mean, anomalies, obs_mean = space.mean, space.anomalies, space.obs_mean  # anomalies (N, n)
@@ -85,6 +92,26 @@ def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight
         transformed = jnp.sqrt(n_members - 1.0) * jnp.einsum("gij,gj->gi", solved.inverse_root(), column)
     update = jnp.sum(weights_mean * column, axis=1)  # (n,)
     return mean + update[None, :] + transformed.T
+
+
+def _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight, solver):
+    """:func:`letkf_analysis` of B blocks of n grid points, (N, B n): the first block is analysed and
+    every block takes the first block's local weights and transforms, grid point by grid point."""
+    n_members, width = members.shape
+    n_grid = local_index.shape[0]
+    blocks = members.reshape(n_members, width // n_grid, n_grid)
+    mean = blocks.mean(axis=0)  # (B, n)
+    anomalies = blocks - mean
+    space = ensemble_space(members[:, :n_grid], obs_members, 1.0)
+    local_y = jnp.moveaxis(space.obs_anomalies[:, local_index], 1, 0)  # (n, N, K)
+    scaled = local_y * (local_weight / error_var)[:, None, :]
+    precision = (n_members - 1) * jnp.eye(n_members) + jnp.einsum("gik,gjk->gij", scaled, local_y)
+    rhs = jnp.einsum("gik,gk->gi", scaled, (y - space.obs_mean)[local_index])
+    solved = solve_precision(precision, n_members - 1.0, solver)
+    weights = solved.apply_inverse(rhs)[:, :, None] + solved.inverse_root(jnp.sqrt(n_members - 1.0))  # (n, N, N)
+    # x_a[i, b, g] = mean[b, g] + sum_j (wbar_g,j + W_g,ji) X[j, b, g]
+    analysed = mean + jnp.einsum("gji,jbg->ibg", weights, anomalies)
+    return analysed.reshape(n_members, width)
 
 
 def make_letkf(model, operator, members: int, radius: float | None, pieces=frozenset(),
@@ -135,4 +162,5 @@ SPEC = FilterSpec(
     widest=WIDEST + ("radius",),
     kalman_exact=True,
     reports_inflation=lambda node: bool(node.adaptive),
+    smoothable=lambda node: not node.adaptive,
 )
