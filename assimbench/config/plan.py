@@ -17,11 +17,11 @@ import jax.numpy as jnp
 import numpy as np
 from omegaconf import DictConfig, OmegaConf
 
-from assimbench.filters.smoother import with_fixed_lag
 from assimbench.config.catalogue import catalogue
 from assimbench.config.choice import Choice, check
 from assimbench.config.lanes import LaneGrid, hull_values, lane_grid, plain_config, with_values
 from assimbench.config.spec import FilterContext
+from assimbench.filters.smoother import with_fixed_lag
 from assimbench.integrators import steps_per_cycle
 from assimbench.io.provenance import provenance
 from assimbench.models.climatology import climate_std
