@@ -115,10 +115,14 @@ def _check_run(cfg) -> None:
 def _check_smoother(cfg, choice) -> None:
     """smoother.lag: an integer >= 0, above 0 only beside a filter that can carry the smoother."""
     lag = NodeChecks(cfg.smoother, "smoother").integer("lag", 0, "an integer >= 0 (cycles; 0 = off)")
-    if lag > 0 and not choice.filter.smoothable(cfg.filter):
-        able = [name for name, spec in catalogue().filters.items() if spec.smoothable(_default_node(spec))]
-        fail("smoother.lag", lag, f"0 with filter {choice.filter.name}; a fixed-lag smoother goes beside "
-             + ", ".join(able) + " (without adaptive inflation)")
+    spec = choice.filter
+    if lag > 0 and not spec.smoothable(cfg.filter):
+        able = [name for name, other in catalogue().filters.items() if other.smoothable(_default_node(other))]
+        fail("smoother.lag", lag, f"0 with filter {spec.name} as configured; a fixed-lag smoother goes beside "
+             + ", ".join(able) + " (without adaptive inflation; the IEnKS with shift 1)")
+    limit = spec.lag_limit(cfg.filter)
+    if limit is not None and lag > limit:
+        fail("smoother.lag", lag, f"at most {limit} with filter {spec.name} (its window)")
 
 
 def _default_node(spec):

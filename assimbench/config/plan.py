@@ -88,9 +88,9 @@ def build_setup(cfg, choice: Choice) -> TwinSetup:
     operator = catalogue().network.build(cfg.observation, model.resolved_size)
     interval = float(cfg.observation.interval)
     forecast_steps = steps_per_cycle(interval, forecaster.dt)
-    filt = choice.filter.build(cfg.filter, FilterContext(forecaster, operator, forecast_steps))
     lag = int(cfg.smoother.lag)
-    if lag > 0:
+    filt = choice.filter.build(cfg.filter, FilterContext(forecaster, operator, forecast_steps, lag))
+    if lag > 0 and filt.analyse_lagged is not None:  # otherwise the filter smooths by itself
         filt = with_fixed_lag(filt, lag)
     available = choice.diagnostic_groups(cfg.filter)
     groups = available if cfg.diagnostics is None else tuple(g for g in available if g in cfg.diagnostics)

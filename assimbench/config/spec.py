@@ -92,12 +92,14 @@ class NetworkSpec:
 
 
 class FilterContext(NamedTuple):
-    """What a filter is built against: the forecast model, the observation operator and the
-    forecast model's steps per analysis interval."""
+    """What a filter is built against: the forecast model, the observation operator, the
+    forecast model's steps per analysis interval, and the smoother's lag (``smoother.lag``) for a
+    filter that smooths by itself (its state then carries ``lagged``)."""
 
     model: object
     operator: object
     steps_per_interval: int
+    smoother_lag: int = 0
 
 
 @dataclass(frozen=True)
@@ -114,7 +116,8 @@ class FilterSpec:
     reports_inflation(node) -> whether info carries an inflation series;
     iterative: info carries ``iterations`` and ``model_integrations`` per cycle;
     smoothable(node) -> whether the built filter can carry a fixed-lag smoother
-    (``Filter.analyse_lagged``);
+    (``Filter.analyse_lagged``) or smooths by itself (see FilterContext);
+    lag_limit(node) -> the largest smoother lag it can give (None: any);
     climatology: its static parts come from the forecast model's climatology;
     assimilates: False for reference runs (no divergence rule applies);
     kalman_exact: on a linear Gaussian problem, without localization and
@@ -135,6 +138,7 @@ class FilterSpec:
     reports_inflation: Callable = lambda node: False
     iterative: bool = False
     smoothable: Callable = lambda node: False
+    lag_limit: Callable = lambda node: None
     climatology: bool = False
     assimilates: bool = True
     kalman_exact: bool = False

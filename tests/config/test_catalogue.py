@@ -32,7 +32,10 @@ def test_every_filter_is_selectable_and_built_as_its_spec_says(name):
     assert built.weighted == spec.weighted
     assert built.assimilates == spec.assimilates
     assert built.reports_inflation == spec.reports_inflation(node)
-    assert (built.analyse_lagged is not None) == spec.smoothable(node)  # it can carry a fixed-lag smoother
+    if spec.smoothable(node):  # it carries a fixed-lag smoother, or smooths by itself
+        smoothing = resolve(compose_config(SMALL + [f"filter={name}", "smoother.lag=1"])).setup.filter
+        state = smoothing.init(jax.random.PRNGKey(0), jax.numpy.zeros((built.members, 12)), plan.settings)
+        assert state.lagged.shape == (1, built.members, 12)
     assert set(spec.traced) <= set(spec.settings(node)) | {"adaptive_std"}  # adaptive_std is traced only when on
     assert set(spec.widest) <= set(spec.traced)
 

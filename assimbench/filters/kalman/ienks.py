@@ -42,6 +42,15 @@ ensemble: the prior side on E_0 before the search, RTPP and RTPS on E_0*
 Cost: every iteration integrates the N members over the whole window (L
 intervals: fixed shapes), and the analysed ensemble once more; the
 ``iterations`` diagnostics report both per cycle.
+
+Smoothing (``smoother.lag`` = K <= L, shift 1): the analysed trajectory is
+the smoothed estimate of the window's times, so the ensemble of cycle k - l
+given y_1 .. y_k is M_(held - l)(E_0*) for l < held and E_0* itself for
+l = held (held = L once the window is full); ``lagged`` holds them, lag 1
+first, for the smoothed-error diagnostics. Unlike the fixed-lag smoother of
+the other filters (:mod:`assimbench.filters.smoother`), which inflates only
+the current forecast, these carry the window start's inflation; without
+inflation, on a linear problem, the two are the same (tested).
 """
 
 from dataclasses import dataclass
@@ -69,13 +78,16 @@ VARIANTS = ("transform", "bundle")
 class IEnKSState(NamedTuple):
     """members (N, n) the ensemble at the current time; start (N, n) the window's start ensemble;
     obs (L, p) the observations after the start, oldest first (obs[j] at start + j + 1 intervals);
-    held: how many of them are real; pending: how many of those wait for an analysis (int32 each)."""
+    held: how many of them are real; pending: how many of those wait for an analysis (int32 each);
+    lagged (K, N, n) the smoothed ensembles of the K cycles before the current one, lag 1 first
+    (K = 0 without smoothing)."""
 
     members: jax.Array
     start: jax.Array
     obs: jax.Array
     held: jax.Array
     pending: jax.Array
+    lagged: jax.Array
 
 
 def forecast_window(ensemble: jax.Array, advance, operator, params, length: int):
@@ -137,11 +149,15 @@ def window_search(prior: jax.Array, obs: jax.Array, mask: jax.Array, error_var, 
 
 
 def make_ienks(model, operator, members: int, window: int, shift: int, max_iterations: int, variant: str,
-               steps_per_interval: int, pieces=frozenset(), solver: str = "eigh") -> Filter:
+               steps_per_interval: int, pieces=frozenset(), solver: str = "eigh", lag: int = 0) -> Filter:
     """The IEnKS of the module docstring with the forecast ``model``; settings["filter"] carries the
-    inflation pieces, ``tolerance`` and ``bundle_scale``."""
+    inflation pieces, ``tolerance`` and ``bundle_scale``; ``lag`` > 0 keeps the smoothed ensembles of
+    the last ``lag`` cycles (shift 1, lag <= window)."""
     if not 1 <= shift <= window:
         raise ValueError(f"the shift must be from 1 to the window ({window}), got {shift}")
+    if lag and (shift != 1 or lag > window):
+        raise ValueError(f"the IEnKS smooths with shift 1 and a lag of at most its window ({window}), got "
+                         f"shift {shift}, lag {lag}")
     if variant not in VARIANTS:
         raise ValueError(f"unknown IEnKS variant {variant!r}; known: {VARIANTS}")
     advance = make_model_flow(model, steps_per_interval, ensemble=True)
@@ -162,7 +178,8 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
         del key, settings
         zero = jnp.asarray(0, jnp.int32)
         return IEnKSState(members=initial_ensemble, start=initial_ensemble, obs=jnp.zeros((window, p)),
-                          held=zero, pending=zero)
+                          held=zero, pending=zero,
+                          lagged=jnp.broadcast_to(initial_ensemble, (lag,) + initial_ensemble.shape))
 
     def analyse(key, state, y, settings):
         held, pending = state.held + 1, state.pending + 1
@@ -178,8 +195,12 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
             new_start = jnp.where(slide > 0, trajectory[jnp.maximum(slide - 1, 0)], analysed_start)
             current = trajectory[held - 1]
             integrations = (iterations + 1) * window * members
+            # Lag l: M_(held - l)(E_0*) = trajectory[held - 1 - l] while l < held, else E_0* itself.
+            lags = jnp.arange(1, lag + 1)
+            lagged = jnp.where((lags < held)[:, None, None], trajectory[jnp.maximum(held - 1 - lags, 0)],
+                               analysed_start[None])
             return (IEnKSState(members=current, start=new_start, obs=jnp.roll(obs, -slide, axis=0),
-                               held=held - slide, pending=jnp.asarray(0, jnp.int32)),
+                               held=held - slide, pending=jnp.asarray(0, jnp.int32), lagged=lagged),
                     iterations, integrations)
 
         def wait(_):
@@ -232,7 +253,7 @@ TRACED = INFLATION_KEYS + ("tolerance", "bundle_scale")
 def _build(node, ctx) -> Filter:
     return make_ienks(ctx.model, ctx.operator, int(node.members), int(node.window), int(node.shift),
                       int(node.max_iterations), str(node.variant), ctx.steps_per_interval, inflation_pieces(node),
-                      str(node.transform_solver))
+                      str(node.transform_solver), ctx.smoother_lag)
 
 
 SPEC = FilterSpec(
@@ -244,4 +265,6 @@ SPEC = FilterSpec(
     traced=TRACED,
     widest=WIDEST,
     iterative=True,
+    smoothable=lambda node: int(node.shift) == 1,
+    lag_limit=lambda node: int(node.window),
 )
