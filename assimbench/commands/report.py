@@ -194,6 +194,10 @@ def build_report(paths: list, out: str, failing: FailingLevel = DEFAULT_LEVEL) -
                 written.append(figures.error_against_setting(
                     mine, key, os.path.join(out, f"error_against_{_file_tag(key)}_{tag}.png")))
         written.append(figures.spread_against_error(mine, os.path.join(out, f"spread_against_error_{tag}.png")))
+        if any(p.best is not None and figures.smoothed_lags(p.best) for p in mine):
+            written.append(figures.error_by_lag(mine, os.path.join(out, f"error_by_lag_{tag}.png")))
+        if any(p.best is not None and p.best.has("model_integrations") for p in mine):
+            written.append(figures.error_against_cost(mine, os.path.join(out, f"error_against_cost_{tag}.png")))
         written += heat_maps(mine, out, tag)
     return written, problems + notes, points, compared
 

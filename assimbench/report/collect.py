@@ -154,7 +154,7 @@ def collect(paths) -> tuple:
 
 
 def varied_settings(rows: list) -> list:
-    """Config keys (besides the experiment's) whose values differ between rows, sorted."""
+    """Config keys (besides the experiment's) whose values differ between the rows that have them, sorted."""
     keys = set()
     for row in rows:
         keys.update(row.config)
@@ -163,7 +163,9 @@ def varied_settings(rows: list) -> list:
         # Keys the tables show in columns of their own are never listed again as settings.
         if key.startswith(IGNORED_PREFIXES) or key in ("filter.name", "filter.members", "seed", "replicates"):
             continue
-        values = {repr(row.config.get(key)) for row in rows}
+        # Only rows that have the key count: a key of one filter (an IEnKS window, an LETKF radius)
+        # is not a difference between filters that do not have it.
+        values = {repr(row.config[key]) for row in rows if key in row.config}
         if len(values) > 1:
             varied.append(key)
     return varied

@@ -92,18 +92,20 @@ def readable_log_ticks(low: float, high: float) -> list:
     return list(matplotlib.ticker.MaxNLocator(4).tick_values(low, high)[1:-1]) or [low, high]
 
 
-def set_log_axis(ax, values: np.ndarray) -> None:
-    """A log y axis over the finite positive ``values`` with numeric ticks that always show."""
+def set_log_axis(ax, values: np.ndarray, which: str = "y") -> None:
+    """A log axis (``which``: "y" or "x") over the finite positive ``values`` with numeric ticks that
+    always show."""
     shown = values[np.isfinite(values) & (values > 0)]
     if shown.size == 0:
         return
     low, high = float(shown.min()) / 1.1, float(shown.max()) * 1.1
-    ax.set_yscale("log")
-    ax.set_ylim(low, high)
+    axis = ax.yaxis if which == "y" else ax.xaxis
+    (ax.set_yscale if which == "y" else ax.set_xscale)("log")
+    (ax.set_ylim if which == "y" else ax.set_xlim)(low, high)
     ticks = readable_log_ticks(low, high)
-    ax.yaxis.set_major_locator(matplotlib.ticker.FixedLocator(ticks))
-    ax.yaxis.set_major_formatter(matplotlib.ticker.FixedFormatter([f"{t:.3g}" for t in ticks]))
-    ax.yaxis.set_minor_locator(matplotlib.ticker.NullLocator())
+    axis.set_major_locator(matplotlib.ticker.FixedLocator(ticks))
+    axis.set_major_formatter(matplotlib.ticker.FixedFormatter([f"{t:.3g}" for t in ticks]))
+    axis.set_minor_locator(matplotlib.ticker.NullLocator())
 
 
 def _observation_error(ax, setting, highest: float = np.inf) -> None:
@@ -358,4 +360,67 @@ def spread_against_error(points: list, path: str) -> str:
             ax.legend(fontsize=8, loc="upper left")
         else:
             ax.text(0.5, 0.5, "every setting lost a replicate", ha="center", va="center", transform=ax.transAxes)
+        return save_png(fig, path)
+
+
+def smoothed_lags(setting) -> list:
+    """The lags 1, 2, ... whose smoothed RMSE every run of ``setting`` holds."""
+    lags = []
+    while setting.has(f"rmse_smoothed_lag{len(lags) + 1}"):
+        lags.append(len(lags) + 1)
+    return lags
+
+
+def error_by_lag(points: list, path: str) -> str:
+    """Time-mean RMSE of the analysis (lag 0) and of the smoothed ensembles at lags 1 .. K, with 95%
+    intervals, at the best setting of every point that smoothed: how much each later observation
+    improves an earlier estimate."""
+    chosen = [p for p in points if p.best is not None and smoothed_lags(p.best)]
+    with matplotlib.rc_context(STYLE):
+        fig, ax = _axes(figsize=(7.0, 3.8), layout="constrained")
+        palette = colours([p.name for p in chosen])
+        for point in chosen:
+            best = point.best
+            names = ["rmse_analysis"] + [f"rmse_smoothed_lag{lag}" for lag in smoothed_lags(best)]
+            estimates = np.array([best.estimate(name) for name in names])  # (K + 1, 3): mean, low, high
+            lags = np.arange(len(names))
+            tuned = f" ({describe(best.config, point.tuned_keys)})" if point.tuned_keys else ""
+            ax.errorbar(lags, estimates[:, 0], yerr=[estimates[:, 0] - estimates[:, 1], estimates[:, 2] - estimates[:, 0]],
+                        color=palette[point.name], marker="o", ms=4, lw=1.4, capsize=3, label=point.name + tuned)
+        ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(integer=True))
+        ax.set_xlabel("lag (analysis cycles after the estimated time; 0: the filter's analysis)")
+        ax.set_ylabel(f"time-mean RMSE ({STATE_UNITS})")
+        ax.set_title("Filter and smoother: error by lag at the best settings (95% intervals)")
+        ax.legend(fontsize=7.5, loc="upper left", bbox_to_anchor=(1.02, 1.0))
+        return save_png(fig, path)
+
+
+def cycle_cost(setting) -> float:
+    """Forecast-model integrations per cycle in member-intervals: the iterative methods' own count,
+    else one forecast of every member."""
+    if setting.has("model_integrations"):
+        return setting.value("model_integrations")
+    return float(setting.members or 1)
+
+
+def error_against_cost(points: list, path: str) -> str:
+    """Best time-mean analysis RMSE (95% interval) of every point against its forecast cost per cycle,
+    in member-intervals (one member integrated over one analysis interval): what iterating buys."""
+    chosen = [p for p in points if p.best is not None]
+    with matplotlib.rc_context(STYLE):
+        fig, ax = _axes(figsize=(7.0, 3.8), layout="constrained")
+        palette = colours([p.name for p in chosen])
+        costs = []
+        for point in chosen:
+            mean, low, high = point.best.estimate("rmse_analysis")
+            cost = cycle_cost(point.best)
+            costs.append(cost)
+            ax.errorbar([cost], [mean], yerr=[[mean - low], [high - mean]], color=palette[point.name], marker="o",
+                        ms=5, capsize=3, lw=1.2, label=point.name, ls="none")
+        if costs:
+            set_log_axis(ax, np.array(costs), which="x")
+        ax.set_xlabel("forecast cost per cycle (member-intervals, log scale)")
+        ax.set_ylabel(f"time-mean analysis RMSE ({STATE_UNITS})")
+        ax.set_title("Accuracy against cost at the best settings (95% intervals)")
+        ax.legend(fontsize=7.5, loc="upper left", bbox_to_anchor=(1.02, 1.0))
         return save_png(fig, path)

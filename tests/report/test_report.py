@@ -224,3 +224,29 @@ def test_only_bad_files_are_refused_in_one_line_that_gives_each_reason(tmp_path,
     assert len(err) == 1 and err[0].startswith("assimbench-report: error: no complete result files"), err
     assert "foreign.h5: not an assimbench result file" in err[0] and "notes.h5: not a readable HDF5 file" in err[0]
     assert not (tmp_path / "r").exists()
+
+
+def test_a_sweep_of_a_smoother_and_an_iterative_filter_gets_its_figures_and_one_comparison(tmp_path, capsys):
+    """ETKF with a fixed-lag smoother beside the IEnKS smoothing over its window, on one truth: each
+    filter's own keys (window, adaptive inflation) do not split the filters into static points of
+    their own, so the two are compared; the smoothed errors by lag and the accuracy-against-cost
+    figures are drawn."""
+    common = ["model=lorenz63", "filter.members=3", "observation.interval=0.25", "cycles=150", "burn_in=30",
+              "seed=1", "replicates=2", "lanes.filter.inflation=[1.05,1.1]", "smoother.lag=1"]
+    assimbench.run(common, output=str(tmp_path / "sweep" / "etkf" / "result.h5"))
+    assimbench.run(common + ["filter=ienks"], output=str(tmp_path / "sweep" / "ienks" / "result.h5"))
+    out = tmp_path / "report"
+    assert command.main([str(tmp_path / "sweep"), "--out", str(out)]) == 0
+    printed = capsys.readouterr().out
+    assert "e1 ETKF, 3 members: best inflation" in printed and "e1 IENKS, 3 members: best inflation" in printed
+    assert "None" not in printed
+    compared = _read_csv(out / "paired.csv")
+    assert [(r["kind"], {r["a"], r["b"]}) for r in compared if r["kind"] == "filters"] == [
+        ("filters", {"ETKF, 3 members (tuned)", "IENKS, 3 members (tuned)"})]
+    for name in ("error_by_lag_e1", "error_against_cost_e1"):
+        assert (out / f"{name}.png").read_bytes()[:8] == PNG_MAGIC, name
+    settings, _ = pool(collect([str(tmp_path / "sweep")])[0])
+    lags = {s.filter: figures.smoothed_lags(s) for s in settings}
+    assert lags == {"etkf": [1], "ienks": [1]}
+    costs = {s.filter: figures.cycle_cost(s) for s in settings}
+    assert costs["etkf"] == 3 and costs["ienks"] > 2 * 3  # at least one step and the final forecast
