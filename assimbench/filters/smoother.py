@@ -12,8 +12,9 @@ inflation pieces act on the current forecast only: they stand for its missing
 spread, not for the earlier states'.
 
 After the analysis of cycle k the state holds ``lagged[l - 1]``, the ensemble
-of cycle k - l given y_1 .. y_k (l = 1 .. K), and ``previous``, the analysis of
-cycle k, which becomes lag 1 at cycle k + 1. Before cycle K + 1 the missing
+of cycle k - l given y_1 .. y_k (l = 1 .. K), and in ``inner.members`` the
+analysis of cycle k (the cycle forecasts only ``members``), which becomes
+lag 1 at cycle k + 1. Before cycle K + 1 the missing
 earlier ensembles are copies of the initial one.
 """
 
@@ -26,12 +27,11 @@ from assimbench.filters.base import Filter
 
 
 class LaggedState(NamedTuple):
-    """members (N, n) the current ensemble; previous (N, n) the last analysis; lagged (K, N, n) the
-    smoothed ensembles of the K cycles before the current one, newest first; inner: the filter's own
-    state (its members kept in step with ``members``)."""
+    """members (N, n) the current ensemble; lagged (K, N, n) the smoothed ensembles of the K cycles
+    before the current one, newest first; inner: the filter's own state, whose members are the last
+    analysis (the cycle forecasts only ``members``)."""
 
     members: jax.Array
-    previous: jax.Array
     lagged: jax.Array
     inner: tuple
 
@@ -47,16 +47,16 @@ def with_fixed_lag(filt: Filter, lag: int) -> Filter:
     def init(key, initial_ensemble, settings):
         inner = filt.init(key, initial_ensemble, settings)
         lagged = jnp.broadcast_to(initial_ensemble, (lag,) + initial_ensemble.shape)
-        return LaggedState(members=initial_ensemble, previous=initial_ensemble, lagged=lagged, inner=inner)
+        return LaggedState(members=initial_ensemble, lagged=lagged, inner=inner)
 
     def analyse(key, state, y, settings):
         members, width = state.members.shape
         # The ensembles of cycles k-1 .. k-K, newest first, side by side as columns: (N, K n).
-        earlier = jnp.concatenate([state.previous[None], state.lagged[:-1]], axis=0)
+        earlier = jnp.concatenate([state.inner.members[None], state.lagged[:-1]], axis=0)
         columns = jnp.moveaxis(earlier, 0, 1).reshape(members, lag * width)
         inner, columns, info = filt.analyse_lagged(key, state.inner._replace(members=state.members), columns, y,
                                                    settings)
         lagged = jnp.moveaxis(columns.reshape(members, lag, width), 1, 0)
-        return LaggedState(members=inner.members, previous=inner.members, lagged=lagged, inner=inner), info
+        return LaggedState(members=inner.members, lagged=lagged, inner=inner), info
 
     return filt._replace(init=init, analyse=analyse, analyse_lagged=None)

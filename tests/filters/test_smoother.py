@@ -99,7 +99,7 @@ def test_a_lagged_copy_of_the_prior_takes_the_priors_analysis(name):
     rng = np.random.default_rng(0)
     prior = jnp.asarray(8.0 + rng.standard_normal((8, 12)))
     state = filt.init(jax.random.PRNGKey(0), prior, plan.settings)
-    state = state._replace(previous=prior, lagged=jnp.stack([prior, prior]))
+    state = state._replace(inner=state.inner._replace(members=prior), lagged=jnp.stack([prior, prior]))
     y = jnp.asarray(rng.standard_normal(plan.setup.operator.size) + 8.0)
     analysed, _ = filt.analyse(jax.random.PRNGKey(1), state, y, plan.settings)
     for lag in range(2):

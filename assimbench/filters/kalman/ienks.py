@@ -119,7 +119,7 @@ def window_search(prior: jax.Array, obs: jax.Array, mask: jax.Array, error_var, 
     eye = jnp.eye(members)
 
     def gauss_newton(carry):
-        w, transform, inverse_transform, _, count, _ = carry
+        w, transform, inverse_transform, count, _ = carry
         spread = bundle_scale * anomalies if variant == "bundle" else transform @ anomalies
         _, observed = forecast_window(mean + w @ anomalies + spread, advance, operator, params, obs.shape[0])
         obs_mean = observed.mean(axis=1)  # (L, p)
@@ -136,16 +136,16 @@ def window_search(prior: jax.Array, obs: jax.Array, mask: jax.Array, error_var, 
         new_transform = solved.inverse_root(jnp.sqrt(floor))
         # T^-1 = H^(1/2) / sqrt(N - 1) = H T / (N - 1): no second root needed.
         size = jnp.sqrt(floor * jnp.mean(increment**2))
-        return w + increment, new_transform, hessian @ new_transform / floor, hessian, count + 1, size
+        return w + increment, new_transform, hessian @ new_transform / floor, count + 1, size
 
     def unfinished(carry):
         *_, count, size = carry
         return (count < max_iterations) & (size >= tolerance)
 
-    start = (jnp.zeros(members), eye, eye, floor * eye, jnp.asarray(0, jnp.int32), jnp.asarray(jnp.inf))
-    w, _, _, hessian, count, _ = jax.lax.while_loop(unfinished, gauss_newton, start)
-    root = solve_precision(hessian, floor, solver).inverse_root(jnp.sqrt(floor))
-    return mean + w @ anomalies + root @ anomalies, count
+    start = (jnp.zeros(members), eye, eye, jnp.asarray(0, jnp.int32), jnp.asarray(jnp.inf))
+    # At least one step runs, so the carried transform is sqrt(N - 1) H^(-1/2) of the last H.
+    w, transform, _, count, _ = jax.lax.while_loop(unfinished, gauss_newton, start)
+    return mean + w @ anomalies + transform @ anomalies, count
 
 
 def make_ienks(model, operator, members: int, window: int, shift: int, max_iterations: int, variant: str,
@@ -167,10 +167,9 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
         del key  # deterministic
         obs, mask = window_obs
         f = settings["filter"]
-        analysed, iterations = window_search(prior, obs, mask, settings["observation"]["error_std"] ** 2, advance,
-                                             operator, settings["forecast_model"], max_iterations, f["tolerance"],
-                                             variant, f["bundle_scale"], solver)
-        return analysed, iterations
+        return window_search(prior, obs, mask, settings["observation"]["error_std"] ** 2, advance, operator,
+                             settings["forecast_model"], max_iterations, f["tolerance"], variant, f["bundle_scale"],
+                             solver)
 
     inflated_search = with_inflation(search, pieces)
 

@@ -74,12 +74,8 @@ def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight
         return _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight, solver)
     n_members = members.shape[0]
     space = ensemble_space(members, obs_members, 1.0)
-    mean, anomalies, obs_mean = space.mean, space.anomalies, space.obs_mean  # anomalies (N, n)
-    local_y = jnp.moveaxis(space.obs_anomalies[:, local_index], 1, 0)  # (n, N, K)
-    scaled = local_y * (local_weight / error_var)[:, None, :]
-    precision = (n_members - 1) * jnp.eye(n_members) + jnp.einsum("gik,gjk->gij", scaled, local_y)
-    departures = (y - obs_mean)[local_index]  # (n, K)
-    rhs = jnp.einsum("gik,gk->gi", scaled, departures)
+    mean, anomalies = space.mean, space.anomalies  # anomalies (N, n)
+    precision, rhs = local_systems(space, y, error_var, local_index, local_weight)
     column = anomalies.T  # (n, N): the anomalies of each grid point
     if solver == "eigh":
         evals, evecs = jnp.linalg.eigh(precision)  # batched over grid points
@@ -94,6 +90,16 @@ def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight
     return mean + update[None, :] + transformed.T
 
 
+def local_systems(space, y, error_var, local_index, local_weight):
+    """Every grid point's A_g (n, N, N) and right-hand side Y_g R_g^-1 (y_g - ybar_g) (n, N), from the
+    observation-space part of ``space`` (:func:`letkf_analysis`)."""
+    n_members = space.obs_anomalies.shape[0]
+    local_y = jnp.moveaxis(space.obs_anomalies[:, local_index], 1, 0)  # (n, N, K)
+    scaled = local_y * (local_weight / error_var)[:, None, :]
+    precision = (n_members - 1) * jnp.eye(n_members) + jnp.einsum("gik,gjk->gij", scaled, local_y)
+    return precision, jnp.einsum("gik,gk->gi", scaled, (y - space.obs_mean)[local_index])
+
+
 def _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight, solver):
     """:func:`letkf_analysis` of B blocks of n grid points, (N, B n): the first block is analysed and
     every block takes the first block's local weights and transforms, grid point by grid point."""
@@ -102,11 +108,8 @@ def _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight,
     blocks = members.reshape(n_members, width // n_grid, n_grid)
     mean = blocks.mean(axis=0)  # (B, n)
     anomalies = blocks - mean
-    space = ensemble_space(members[:, :n_grid], obs_members, 1.0)
-    local_y = jnp.moveaxis(space.obs_anomalies[:, local_index], 1, 0)  # (n, N, K)
-    scaled = local_y * (local_weight / error_var)[:, None, :]
-    precision = (n_members - 1) * jnp.eye(n_members) + jnp.einsum("gik,gjk->gij", scaled, local_y)
-    rhs = jnp.einsum("gik,gk->gi", scaled, (y - space.obs_mean)[local_index])
+    precision, rhs = local_systems(ensemble_space(members[:, :n_grid], obs_members, 1.0), y, error_var,
+                                   local_index, local_weight)
     solved = solve_precision(precision, n_members - 1.0, solver)
     weights = solved.apply_inverse(rhs)[:, :, None] + solved.inverse_root(jnp.sqrt(n_members - 1.0))  # (n, N, N)
     # x_a[i, b, g] = mean[b, g] + sum_j (wbar_g,j + W_g,ji) X[j, b, g]
