@@ -192,6 +192,13 @@ def format_summary(result, path, title: str) -> str:
                         ("Gauss-Newton steps", "iterations"), ("members x intervals", "model_integrations")):
         if name in s:
             lines.append(f"  {label:<20}{_cell(s, name)}")
+    shares = {int(name[len("iterations_share"):]): s[name] for name in s
+              if name.startswith("iterations_share") and name[len("iterations_share"):].isdigit()}
+    if shares:
+        seen = ", ".join(f"{steps}: {100 * share:.0f}%" for steps, share in sorted(shares.items()) if share >= 0.005)
+        rare = [str(steps) for steps, share in sorted(shares.items()) if 0 < share < 0.005]
+        lines.append(f"  {'steps per cycle':<20}{seen}" + (f"; {', '.join(rare)}: under 0.5%" if rare else "")
+                     + "   (share of cycles after burn-in)")
     if climate is not None:
         lines += reference_lines(s, config, float(climate))
     if result.diverged:

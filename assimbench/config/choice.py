@@ -119,7 +119,7 @@ def _check_smoother(cfg, choice) -> None:
     if lag > 0 and not spec.smoothable(cfg.filter):
         able = [name for name, other in catalogue().filters.items() if other.smoothable(_default_node(other))]
         fail("smoother.lag", lag, f"0 with filter {spec.name} as configured; a fixed-lag smoother goes beside "
-             + ", ".join(able) + " (without adaptive inflation; the IEnKS with shift 1)")
+             + ", ".join(able) + " (the IEnKS with shift 1)")
     limit = spec.lag_limit(cfg.filter)
     if limit is not None and lag > limit:
         fail("smoother.lag", lag, f"at most {limit} with filter {spec.name} (its window)")

@@ -115,6 +115,8 @@ class FilterSpec:
     members(node) -> ensemble size; weighted: a weighted ensemble;
     reports_inflation(node) -> whether info carries an inflation series;
     iterative: info carries ``iterations`` and ``model_integrations`` per cycle;
+    step_counts(node) -> the per-cycle ``iterations`` values an iterative filter
+    can report (the summary gives the share of cycles at each);
     smoothable(node) -> whether the built filter can carry a fixed-lag smoother
     (``Filter.analyse_lagged``) or smooths by itself (see FilterContext);
     lag_limit(node) -> the largest smoother lag it can give (None: any);
@@ -137,6 +139,7 @@ class FilterSpec:
     weighted: bool = False
     reports_inflation: Callable = lambda node: False
     iterative: bool = False
+    step_counts: Callable = lambda node: range(0)
     smoothable: Callable = lambda node: False
     lag_limit: Callable = lambda node: None
     climatology: bool = False

@@ -54,12 +54,15 @@ class Chunk(NamedTuple):
 
 class MeansSink:
     """Time means after burn-in (with batch-means intervals) and, if asked, the whole series in memory.
-    A series with a ``lag`` axis, (replicates, L, K), is averaged per lag as ``<name>_lag<l>``."""
+    A series with a ``lag`` axis, (replicates, L, K), is averaged per lag as ``<name>_lag<l>``; a
+    series with ``shares`` = {name: values} also as the share of cycles at each value,
+    ``<name>_share<v>`` (the time mean of an indicator: a distribution with intervals)."""
 
-    def __init__(self, plan, names: list, keep_series: bool, lag_names: tuple = ()):
+    def __init__(self, plan, names: list, keep_series: bool, lag_names: tuple = (), shares: dict | None = None):
         self.means = TimeMeans(plan.lanes * plan.replicates, plan.cycles, plan.burn_in)
         self.names = list(names) + list(lag_names)
         self.lag_names = set(lag_names)
+        self.shares = shares or {}
         self.kept = {name: [] for name in self.names} if keep_series else None
 
     def add(self, chunk: Chunk) -> None:
@@ -70,6 +73,8 @@ class MeansSink:
                     self.means.add(f"{name}_lag{lag + 1}", values[:, :, lag], chunk.first_cycle)
             else:
                 self.means.add(name, values, chunk.first_cycle)
+            for value in self.shares.get(name, ()):
+                self.means.add(f"{name}_share{value}", (values == value).astype(np.float64), chunk.first_cycle)
             if self.kept is not None:
                 self.kept[name].append(values)
 
@@ -214,11 +219,13 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
     count_names = [n for n, lay in plan.layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "rank"]
     lag_names = [n for n, lay in plan.layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "lag"]
     lagged_means = [f"{n}_lag{lag}" for n in lag_names for lag in plan.coordinates.get("lag", ())]
+    shares = {"iterations": plan.choice.filter.step_counts(plan.config.filter)} if "iterations" in scalar_names else {}
+    share_means = [f"{n}_share{value}" for n, values in shares.items() for value in values]
     length = min(plan.chunk_cycles, plan.cycles)
     workers = worker_count(plan.workers, plan.lanes * plan.replicates, plan.cycles)
     compile_seconds, outputs = _in_workers(plan, length, workers) if workers > 1 else _in_process(plan, length)
     startup_seconds = time.perf_counter() - started
-    means = MeansSink(plan, scalar_names + count_names, keep_series, tuple(lag_names))
+    means = MeansSink(plan, scalar_names + count_names, keep_series, tuple(lag_names), shares)
     monitor = DivergenceMonitor(plan, scalar_names)
     sinks = [means, monitor]
     writer = WriterSink(plan, output, batch) if output is not None else None
@@ -229,7 +236,7 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
         for piece in _chunks(plan, outputs, clock):
             for sink in sinks:
                 sink.add(piece)
-        summary, per_replicate = _summaries(plan, means, scalar_names + lagged_means, batch)
+        summary, per_replicate = _summaries(plan, means, scalar_names + lagged_means + share_means, batch)
         first_bad = batch.split(monitor.first_bad)
         finish = {
             "diverged": bool(np.any(first_bad >= 0)),

@@ -11,6 +11,7 @@ from assimbench.config.checks import ConfigError
 from assimbench.config.composition import compose_config
 from assimbench.config.plan import resolve
 from assimbench.filters.base import EnsembleState
+from assimbench.filters.kalman.enkfn import make_enkfn
 from assimbench.filters.kalman.etkf import make_etkf
 from assimbench.filters.kalman.ienks import make_ienks
 from assimbench.filters.smoother import with_fixed_lag
@@ -27,6 +28,20 @@ def _linear_model(seed=0):
     matrix = jnp.asarray(0.4 * rng.standard_normal((SIZE, SIZE)) - 0.2 * np.eye(SIZE))
     return Model(name="linear", size=SIZE, dt=0.05, tendency=lambda x, params: x @ matrix.T, params={},
                  spinup_time=0.0, first_guess=lambda key, params: jnp.zeros(SIZE), ring=False)
+
+
+def _jitted(filt):
+    """The filter with a compiled analysis: one compile per filter instead of eager tracing every cycle."""
+    return filt._replace(analyse=jax.jit(filt.analyse))
+
+
+def _ienks(*args, **kwargs):
+    return _jitted(make_ienks(*args, **kwargs))
+
+
+def _etkf(operator, smoother_lag=0):
+    etkf = make_etkf(operator, MEMBERS)
+    return _jitted(with_fixed_lag(etkf, smoother_lag) if smoother_lag else etkf)
 
 
 def _settings(inflation=1.0, tolerance=1e-6, bundle_scale=1e-4):
@@ -67,9 +82,9 @@ def test_on_a_linear_problem_every_analysis_is_the_etkfs(window, variant, inflat
     which for a linear model is the same as inflating the forecast."""
     model = _linear_model()
     operator = every_kth(SIZE, 2)
-    flow = make_model_flow(model, 1, ensemble=True)
-    smoother = make_ienks(model, operator, MEMBERS, window, 1, 10, variant, 1)
-    etkf = make_etkf(operator, MEMBERS)
+    flow = jax.jit(make_model_flow(model, 1, ensemble=True))
+    smoother = _ienks(model, operator, MEMBERS, window, 1, 10, variant, 1)
+    etkf = _etkf(operator)
     settings = _settings(inflation)
     # The bundle's finite differences are exact for a linear model up to round-off / epsilon.
     tolerance = 1e-9 if variant == "bundle" else 1e-11
@@ -86,9 +101,9 @@ def test_a_shift_of_two_assimilates_two_observations_at_once_as_the_etkf_does_in
     differ by a rotation; in between, the smoother only forecasts."""
     model = _linear_model(3)
     operator = every_kth(SIZE, 2)
-    flow = make_model_flow(model, 1, ensemble=True)
-    smoother = make_ienks(model, operator, MEMBERS, 3, 2, 10, "transform", 1)
-    etkf = make_etkf(operator, MEMBERS)
+    flow = jax.jit(make_model_flow(model, 1, ensemble=True))
+    smoother = _ienks(model, operator, MEMBERS, 3, 2, 10, "transform", 1)
+    etkf = _etkf(operator)
     for k, (ours, theirs, info) in enumerate(_cycle_both(smoother, etkf, flow, _settings(), 10), start=1):
         if k % 2:
             assert int(info["iterations"]) == 0 and float(info["model_integrations"]) == MEMBERS
@@ -106,9 +121,9 @@ def test_its_smoothed_ensembles_are_the_ensemble_smoothers_on_a_linear_problem()
     smoother inflates only the current forecast."""
     model = _linear_model(5)
     operator = every_kth(SIZE, 2)
-    flow = make_model_flow(model, 1, ensemble=True)
-    smoother = make_ienks(model, operator, MEMBERS, 3, 1, 10, "transform", 1, lag=3)
-    reference = with_fixed_lag(make_etkf(operator, MEMBERS), 3)
+    flow = jax.jit(make_model_flow(model, 1, ensemble=True))
+    smoother = _ienks(model, operator, MEMBERS, 3, 1, 10, "transform", 1, lag=3)
+    reference = _etkf(operator, 3)
     rng = np.random.default_rng(2)
     key = jax.random.PRNGKey(0)
     settings = _settings(1.0)
@@ -123,12 +138,106 @@ def test_its_smoothed_ensembles_are_the_ensemble_smoothers_on_a_linear_problem()
                                        rtol=0, atol=1e-10, err_msg=f"cycle {k}, lag {lag}")
 
 
+def _assert_same_gaussian(ours, theirs, atol, where):
+    np.testing.assert_allclose(ours.mean(0), theirs.mean(0), rtol=0, atol=atol, err_msg=where)
+    np.testing.assert_allclose(np.cov(ours.T), np.cov(theirs.T), rtol=0, atol=atol, err_msg=where)
+
+
+@pytest.mark.parametrize("window, shift", [(3, 1), (4, 2)])
+def test_multiple_data_assimilation_with_its_balancing_search_is_the_kalman_filter_on_a_linear_problem(window,
+                                                                                                        shift):
+    """Multiple data assimilation splits every observation's weight over the window / shift analyses
+    that see it (R scaled by window / shift), and the balancing search completes the weights. On a
+    linear-Gaussian problem the tempered likelihoods multiply to the full one, so the current
+    ensemble has the Kalman filter's mean and covariance, which the ETKF reproduces with more
+    members than variables (Bocquet & Sakov 2014, QJRMS 140, sec. 3, from memory; the ETKF's
+    exactness: Bishop, Etherton & Majumdar 2001, Mon. Wea. Rev. 129, common practice). The window's
+    start differs from single data assimilation's: it carries the observations only in part."""
+    model = _linear_model(7)
+    operator = every_kth(SIZE, 2)
+    flow = jax.jit(make_model_flow(model, 1, ensemble=True))
+    split = _ienks(model, operator, MEMBERS, window, shift, 10, "transform", 1, assimilation="multiple")
+    once = _ienks(model, operator, MEMBERS, window, shift, 10, "transform", 1)
+    etkf = _etkf(operator)
+    rng = np.random.default_rng(4)
+    key = jax.random.PRNGKey(0)
+    settings = _settings()
+    ensemble = jnp.asarray(rng.standard_normal((MEMBERS, SIZE)))
+    states = [f.init(key, ensemble, settings) for f in (split, once, etkf)]
+    starts_differ = False
+    for k in range(1, 13):
+        y = jnp.asarray(rng.standard_normal(operator.size))
+        states = [state._replace(members=flow(state.members, {})) for state in states]
+        (split_state, info), (once_state, _), (etkf_state, _) = [
+            f.analyse(key, state, y, settings) for f, state in zip((split, once, etkf), states)]
+        states = [split_state, once_state, etkf_state]
+        if k % shift:
+            continue
+        _assert_same_gaussian(np.asarray(split_state.members), np.asarray(etkf_state.members), 1e-9, f"cycle {k}")
+        # Two searches, each solved in its first step: 2 + 2 steps and four window integrations.
+        assert int(info["iterations"]) == 4
+        assert float(info["model_integrations"]) == (4 + 2) * window * MEMBERS + MEMBERS
+        starts_differ |= not np.allclose(np.asarray(split_state.start), np.asarray(once_state.start), atol=1e-6)
+    assert starts_differ
+
+
+def test_its_smoothed_ensembles_with_multiple_data_assimilation_are_the_smoothers_on_a_linear_problem():
+    """Window 3, shift 1, lag 3: the balancing search's trajectory is the smoothed estimate; on a
+    linear-Gaussian problem its mean and covariance at every lag are the fixed-lag ETKF smoother's
+    (the Rauch-Tung-Striebel smoother's, tests/filters/test_smoother.py)."""
+    model = _linear_model(8)
+    operator = every_kth(SIZE, 2)
+    flow = jax.jit(make_model_flow(model, 1, ensemble=True))
+    smoother = _ienks(model, operator, MEMBERS, 3, 1, 10, "transform", 1, lag=3, assimilation="multiple")
+    reference = _etkf(operator, 3)
+    rng = np.random.default_rng(6)
+    key = jax.random.PRNGKey(0)
+    settings = _settings()
+    ensemble = jnp.asarray(rng.standard_normal((MEMBERS, SIZE)))
+    ours, theirs = smoother.init(key, ensemble, settings), reference.init(key, ensemble, settings)
+    for k in range(1, 9):
+        y = jnp.asarray(rng.standard_normal(operator.size))
+        ours, _ = smoother.analyse(key, ours._replace(members=flow(ours.members, {})), y, settings)
+        theirs, _ = reference.analyse(key, theirs._replace(members=flow(theirs.members, {})), y, settings)
+        for lag in range(1, min(k, 3) + 1):
+            _assert_same_gaussian(np.asarray(ours.lagged[lag - 1]), np.asarray(theirs.lagged[lag - 1]), 1e-9,
+                                  f"cycle {k}, lag {lag}")
+
+
+@pytest.mark.parametrize("variant", ["transform", "bundle"])
+def test_the_finite_size_prior_over_one_interval_converges_to_the_enkfn_on_a_linear_problem(variant):
+    """prior=finite_size, window 1, linear: the Gauss-Newton steps converge to the minimum of the
+    EnKF-N's cost (its prior is not quadratic, so this takes a few steps), and the analysis is the
+    EnKF-N's member for member, its implied inflation too (Bocquet & Sakov 2012, Nonlin. Processes
+    Geophys. 19, the IEnKF-N reduces to the EnKF-N for a linear system; from memory)."""
+    model = _linear_model(9)
+    operator = every_kth(SIZE, 2)
+    flow = jax.jit(make_model_flow(model, 1, ensemble=True))
+    smoother = _ienks(model, operator, MEMBERS, 1, 1, 50, variant, 1, prior="finite_size")
+    enkfn = _jitted(make_enkfn(operator, MEMBERS))
+    rng = np.random.default_rng(10)
+    key = jax.random.PRNGKey(0)
+    settings = _settings(tolerance=1e-12)
+    ensemble = jnp.asarray(rng.standard_normal((MEMBERS, SIZE)))
+    ours, theirs = smoother.init(key, ensemble, settings), enkfn.init(key, ensemble, settings)
+    steps = []
+    for k in range(1, 11):
+        y = jnp.asarray(rng.standard_normal(operator.size))
+        ours, info = smoother.analyse(key, ours._replace(members=flow(ours.members, {})), y, settings)
+        theirs, their_info = enkfn.analyse(key, theirs._replace(members=flow(theirs.members, {})), y, settings)
+        np.testing.assert_allclose(np.asarray(ours.members), np.asarray(theirs.members), rtol=0, atol=1e-8,
+                                   err_msg=f"cycle {k}")
+        np.testing.assert_allclose(float(info["inflation"]), float(their_info["inflation"]), rtol=1e-9)
+        steps.append(int(info["iterations"]))
+    assert max(steps) < 50 and min(steps) > 2, steps  # converged, and not in one step
+
+
 def test_iterations_stop_at_the_cap():
     model = _linear_model()
     operator = every_kth(SIZE, 2)
-    flow = make_model_flow(model, 1, ensemble=True)
-    smoother = make_ienks(model, operator, MEMBERS, 2, 1, 1, "transform", 1)
-    for _, _, info in _cycle_both(smoother, make_etkf(operator, MEMBERS), flow, _settings(), 3):
+    flow = jax.jit(make_model_flow(model, 1, ensemble=True))
+    smoother = _ienks(model, operator, MEMBERS, 2, 1, 1, "transform", 1)
+    for _, _, info in _cycle_both(smoother, _etkf(operator), flow, _settings(), 3):
         assert int(info["iterations"]) == 1
 
 
@@ -149,8 +258,19 @@ def test_the_run_reports_iterations_and_cost_and_compiles_once_for_every_toleran
     ("filter.tolerance=0", "filter.tolerance=0.0 is not allowed: a finite number > 0"),
     ("filter.max_iterations=0", "filter.max_iterations=0 is not allowed: an integer >= 1"),
     ("smoother.lag=3", "smoother.lag=3 is not allowed: at most 2 with filter ienks (its window)"),
+    ("filter.assimilation=twice", "filter.assimilation='twice' is not allowed: single or multiple"),
+    ("filter.prior=flat", "filter.prior='flat' is not allowed: gaussian or finite_size"),
+    ("filter.prior_extra_count=2", "filter.prior_extra_count=2 is not allowed: 0 (count N, Bocquet 2011) or 1 (N + 1, "
+                                   "Bocquet et al. 2015)"),
 ])
 def test_bad_window_settings_are_one_line(override, message):
     with pytest.raises(ConfigError) as caught:
         resolve(compose_config(["filter=ienks", "filter.window=2", override]))
     assert str(caught.value) == message
+
+
+def test_multiple_data_assimilation_needs_a_shift_that_divides_the_window():
+    with pytest.raises(ConfigError) as caught:
+        resolve(compose_config(["filter=ienks", "filter.window=3", "filter.shift=2", "filter.assimilation=multiple"]))
+    assert str(caught.value) == ("filter.assimilation='multiple' is not allowed: single with window 3 and shift 2 "
+                                 "(multiple needs a shift that divides the window)")

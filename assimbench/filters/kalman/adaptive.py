@@ -92,17 +92,29 @@ def adaptive_ensemble_filter(name: str, members: int, update, operator, pieces=f
         rho = start if local_windows is None else jnp.full(state_size, start, dtype=jnp.float64)
         return AdaptiveState(members=initial_ensemble, rho=rho)
 
-    def analyse(key, state, y, settings):
+    def adapted(state, y, settings):
+        """(rho_a, the settings with its anomaly factor in place of filter.inflation)."""
         f = settings["filter"]
         error_var = settings["observation"]["error_std"] ** 2
         local = None if local_windows is None else local_windows(settings)
         rho = update_inflation(state.rho, operator(state.members), y, error_var, f["adaptive_std"] ** 2, local)
         rho = jnp.clip(rho, f["adaptive_min"] ** 2, f["adaptive_max"] ** 2)
         factor = jnp.sqrt(rho)  # scalar, or (n,): multiplies the anomalies of each variable
-        posterior, info = analyse_members(key, state.members, y, {**settings, "filter": {**f, "inflation": factor}})
-        return AdaptiveState(members=posterior, rho=rho), {**info, "inflation": jnp.mean(factor)}
+        return rho, {**settings, "filter": {**f, "inflation": factor}}
 
-    return Filter(name=name, members=members, init=init, analyse=analyse, reports_inflation=True)
+    def analyse(key, state, y, settings):
+        rho, settings = adapted(state, y, settings)
+        posterior, info = analyse_members(key, state.members, y, settings)
+        return AdaptiveState(members=posterior, rho=rho), {**info, "inflation": jnp.mean(jnp.sqrt(rho))}
+
+    def analyse_lagged(key, state, lagged, y, settings):
+        # The factor is estimated from the current forecast and inflates it alone, as a fixed factor does.
+        rho, settings = adapted(state, y, settings)
+        posterior, lagged, info = analyse_members(key, state.members, y, settings, lagged)
+        return AdaptiveState(members=posterior, rho=rho), lagged, {**info, "inflation": jnp.mean(jnp.sqrt(rho))}
+
+    return Filter(name=name, members=members, init=init, analyse=analyse, reports_inflation=True,
+                  analyse_lagged=analyse_lagged)
 
 
 @dataclass

@@ -84,5 +84,5 @@ SPEC = FilterSpec(
     widest=WIDEST,
     kalman_exact=True,
     reports_inflation=lambda node: bool(node.adaptive),
-    smoothable=lambda node: not node.adaptive,
+    smoothable=lambda node: True,
 )

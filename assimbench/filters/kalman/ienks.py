@@ -39,6 +39,33 @@ forecast as for every filter. The inflation pieces act on the window-start
 ensemble: the prior side on E_0 before the search, RTPP and RTPS on E_0*
 (with a linear model, inflating A_0 is inflating the forecast anomalies).
 
+Multiple data assimilation (``assimilation=multiple``, the shift dividing
+the window; Bocquet & Sakov 2014, Sec. 3, from memory): every analysis
+assimilates every observation of the window with the weight m_j = S / L
+(R scaled by L / S), so each observation, seen by L / S analyses, counts once
+in all. This analysis is the one the window slides on. The window start then
+carries the observations of the window only in part (the state keeps how
+much of each: ``used``), so a second, balancing search from the same prior
+gives each held observation the rest of its weight, m_j = 1 - used_j; its
+trajectory gives the current members and the smoothed ensembles. Single data
+assimilation is the same bookkeeping with m_j = 1 - used_j in the one search.
+
+Finite-size prior (``prior=finite_size``; Bocquet & Sakov 2012, Nonlin.
+Processes Geophys. 19, 383-399, the IEnKF-N, from memory): the Gaussian term
+(N - 1)/2 |w|^2 becomes the EnKF-N's (c/2) ln(eps_N + |w|^2) (c = N +
+``prior_extra_count``; :mod:`assimbench.filters.kalman.enkfn`), so no inflation
+needs tuning. Its Gauss-Newton steps use the gradient zeta w - sum_j m_j S_j
+R^-1 (y_j - zbar_j) and the positive part zeta I + G of the Hessian, zeta =
+c / (eps_N + |w|^2), G = sum_j m_j S_j R^-1 S_j^T: local steps (the exact
+minimiser of the linearised cost, the EnKF-N's dual solution, can leap far
+into the prior's heavy tail on one outlying innovation; measured on
+Lorenz-63 with 3 members). The transform is sqrt(N - 1) H^(-1/2) with the
+whole Hessian H = zeta I + G - (2 zeta^2 / c) w w^T. For a window of one
+interval on a linear problem the converged analysis is the EnKF-N's
+(tested). The implied anomaly
+inflation sqrt((N - 1) / zeta) of the last analysis is reported as
+``inflation``.
+
 Cost: every iteration integrates the N members over the whole window (L
 intervals: fixed shapes), and the analysed ensemble once more; the
 ``iterations`` diagnostics report both per cycle.
@@ -61,6 +88,7 @@ import jax.numpy as jnp
 
 from assimbench.config.spec import FilterSpec, floats
 from assimbench.filters.base import Filter
+from assimbench.filters.kalman.ensemble_space import symmetric_square_root_transform
 from assimbench.filters.kalman.inflation import (
     INFLATION_KEYS,
     WIDEST,
@@ -73,21 +101,27 @@ from assimbench.filters.kalman.precision_solvers import check_transform_solver, 
 from assimbench.integrators import make_model_flow
 
 VARIANTS = ("transform", "bundle")
+ASSIMILATIONS = ("single", "multiple")
+PRIORS = ("gaussian", "finite_size")
 
 
 class IEnKSState(NamedTuple):
     """members (N, n) the ensemble at the current time; start (N, n) the window's start ensemble;
     obs (L, p) the observations after the start, oldest first (obs[j] at start + j + 1 intervals);
     held: how many of them are real; pending: how many of those wait for an analysis (int32 each);
+    used (L,) the weight of each observation already in the start ensemble (0 to 1);
     lagged (K, N, n) the smoothed ensembles of the K cycles before the current one, lag 1 first
-    (K = 0 without smoothing)."""
+    (K = 0 without smoothing); inflation: the last analysis's implied anomaly inflation
+    (finite-size prior; 1 otherwise)."""
 
     members: jax.Array
     start: jax.Array
     obs: jax.Array
     held: jax.Array
     pending: jax.Array
+    used: jax.Array
     lagged: jax.Array
+    inflation: jax.Array
 
 
 def forecast_window(ensemble: jax.Array, advance, operator, params, length: int):
@@ -101,25 +135,28 @@ def forecast_window(ensemble: jax.Array, advance, operator, params, length: int)
     return states, observed
 
 
-def window_search(prior: jax.Array, obs: jax.Array, mask: jax.Array, error_var, advance, operator, params,
+def window_search(prior: jax.Array, obs: jax.Array, weights: jax.Array, error_var, advance, operator, params,
                   max_iterations: int, tolerance, variant: str = "transform", bundle_scale=1e-4,
-                  solver: str = "eigh"):
-    """Minimise J(w) by Gauss-Newton in ensemble space (module docstring): (E_0* (N, n), iterations).
+                  solver: str = "eigh", prior_count: float | None = None):
+    """Minimise J(w) by Gauss-Newton in ensemble space (module docstring): (E_0* (N, n), iterations, zeta).
 
-    prior: E_0 (N, n), inflation already applied; obs (L, p) and mask (L,) the
-    window's observations and which of them this analysis assimilates;
-    error_var: R = diag(error_var), a scalar or (p,); advance(x, params): one
-    analysis interval of the forecast model on members (N, n); operator:
-    h on the last axis; iterations (int32): Gauss-Newton steps taken.
+    prior: E_0 (N, n), inflation already applied; obs (L, p) and weights (L,)
+    the window's observations and the weight m_j this analysis gives each (0:
+    not assimilated); error_var: R = diag(error_var), a scalar or (p,);
+    advance(x, params): one analysis interval of the forecast model on members
+    (N, n); operator: h on the last axis; prior_count: None for the Gaussian
+    prior, c for the finite-size one; iterations (int32): Gauss-Newton steps
+    taken; zeta: the prior's curvature at the minimum (N - 1 for the Gaussian).
     """
     members = prior.shape[0]
     floor = members - 1.0
     mean = prior.mean(axis=0)
     anomalies = prior - mean
     eye = jnp.eye(members)
+    eps_n = 1.0 + 1.0 / members
 
     def gauss_newton(carry):
-        w, transform, inverse_transform, count, _ = carry
+        w, transform, inverse_transform, count, _, _ = carry
         spread = bundle_scale * anomalies if variant == "bundle" else transform @ anomalies
         _, observed = forecast_window(mean + w @ anomalies + spread, advance, operator, params, obs.shape[0])
         obs_mean = observed.mean(axis=1)  # (L, p)
@@ -128,28 +165,47 @@ def window_search(prior: jax.Array, obs: jax.Array, mask: jax.Array, error_var, 
             sensitivities = deviations / bundle_scale
         else:
             sensitivities = jnp.einsum("ij,ljp->lip", inverse_transform, deviations)
-        weighted = mask[:, None, None] * sensitivities / error_var  # m_j S_j R^-1, (L, N, p)
-        hessian = floor * eye + jnp.einsum("lip,ljp->ij", weighted, sensitivities)
-        gradient = floor * w - jnp.einsum("lip,lp->i", weighted, obs - obs_mean)
-        solved = solve_precision(hessian, floor, solver)
-        increment = -solved.apply_inverse(gradient)
-        new_transform = solved.inverse_root(jnp.sqrt(floor))
-        # T^-1 = H^(1/2) / sqrt(N - 1) = H T / (N - 1): no second root needed.
-        size = jnp.sqrt(floor * jnp.mean(increment**2))
-        return w + increment, new_transform, hessian @ new_transform / floor, count + 1, size
+        weighted = weights[:, None, None] * sensitivities / error_var  # m_j S_j R^-1, (L, N, p)
+        gram = jnp.einsum("lip,ljp->ij", weighted, sensitivities)  # G = sum_j m_j S_j R^-1 S_j^T
+        pull = jnp.einsum("lip,lp->i", weighted, obs - obs_mean)  # sum_j m_j S_j R^-1 (y_j - zbar_j)
+        if prior_count is None:
+            hessian = floor * eye + gram
+            solved = solve_precision(hessian, floor, solver)
+            new_w = w - solved.apply_inverse(floor * w - pull)
+            new_transform = solved.inverse_root(jnp.sqrt(floor))
+            # T^-1 = H^(1/2) / sqrt(N - 1) = H T / (N - 1): no second root needed.
+            new_inverse = hessian @ new_transform / floor
+            zeta = jnp.asarray(floor)
+        else:
+            # A Gauss-Newton step on the primal cost with the prior's positive part of the Hessian,
+            # zeta I (zeta = c / (eps_N + |w|^2)): local steps, where the exact minimiser of the
+            # linearised cost can leap into the heavy tail on one outlying innovation.
+            zeta = prior_count / (eps_n + w @ w)
+            solved = solve_precision(zeta * eye + gram, zeta, "eigh")
+            new_w = w - solved.apply_inverse(zeta * w - pull)
+            # The transform from the whole Hessian at the new w (the EnKF-N's at the minimum).
+            zeta = prior_count / (eps_n + new_w @ new_w)
+            hessian = zeta * eye + gram - (2.0 * zeta**2 / prior_count) * jnp.outer(new_w, new_w)
+            h_evals, h_evecs = jnp.linalg.eigh(hessian)
+            h_evals = jnp.maximum(h_evals, 1e-8 * zeta)  # positive semi-definite near the minimum
+            new_transform = symmetric_square_root_transform(h_evals, h_evecs)
+            new_inverse = (h_evecs * jnp.sqrt(h_evals)) @ h_evecs.T / jnp.sqrt(floor)
+        size = jnp.sqrt(floor * jnp.mean((new_w - w) ** 2))
+        return new_w, new_transform, new_inverse, count + 1, size, zeta
 
     def unfinished(carry):
-        *_, count, size = carry
+        count, size = carry[3], carry[4]
         return (count < max_iterations) & (size >= tolerance)
 
-    start = (jnp.zeros(members), eye, eye, jnp.asarray(0, jnp.int32), jnp.asarray(jnp.inf))
+    start = (jnp.zeros(members), eye, eye, jnp.asarray(0, jnp.int32), jnp.asarray(jnp.inf), jnp.asarray(floor))
     # At least one step runs, so the carried transform is sqrt(N - 1) H^(-1/2) of the last H.
-    w, transform, _, count, _ = jax.lax.while_loop(unfinished, gauss_newton, start)
-    return mean + w @ anomalies + transform @ anomalies, count
+    w, transform, _, count, _, zeta = jax.lax.while_loop(unfinished, gauss_newton, start)
+    return mean + w @ anomalies + transform @ anomalies, count, zeta
 
 
 def make_ienks(model, operator, members: int, window: int, shift: int, max_iterations: int, variant: str,
-               steps_per_interval: int, pieces=frozenset(), solver: str = "eigh", lag: int = 0) -> Filter:
+               steps_per_interval: int, pieces=frozenset(), solver: str = "eigh", lag: int = 0,
+               assimilation: str = "single", prior: str = "gaussian", prior_extra_count: int = 1) -> Filter:
     """The IEnKS of the module docstring with the forecast ``model``; settings["filter"] carries the
     inflation pieces, ``tolerance`` and ``bundle_scale``; ``lag`` > 0 keeps the smoothed ensembles of
     the last ``lag`` cycles (shift 1, lag <= window)."""
@@ -160,16 +216,25 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
                          f"shift {shift}, lag {lag}")
     if variant not in VARIANTS:
         raise ValueError(f"unknown IEnKS variant {variant!r}; known: {VARIANTS}")
+    if assimilation not in ASSIMILATIONS or (assimilation == "multiple" and window % shift):
+        raise ValueError(f"assimilation must be one of {ASSIMILATIONS} (multiple: the shift dividing the window), "
+                         f"got {assimilation!r} with window {window}, shift {shift}")
+    if prior not in PRIORS:
+        raise ValueError(f"unknown IEnKS prior {prior!r}; known: {PRIORS}")
     advance = make_model_flow(model, steps_per_interval, ensemble=True)
     p = operator.size
+    prior_count = float(members + prior_extra_count) if prior == "finite_size" else None
+    multiple = assimilation == "multiple"
 
-    def search(key, prior, window_obs, settings):
+    def search(key, start, window_obs, settings):
         del key  # deterministic
-        obs, mask = window_obs
+        obs, weights = window_obs
         f = settings["filter"]
-        return window_search(prior, obs, mask, settings["observation"]["error_std"] ** 2, advance, operator,
-                             settings["forecast_model"], max_iterations, f["tolerance"], variant, f["bundle_scale"],
-                             solver)
+        analysed, iterations, zeta = window_search(
+            start, obs, weights, settings["observation"]["error_std"] ** 2, advance, operator,
+            settings["forecast_model"], max_iterations, f["tolerance"], variant, f["bundle_scale"], solver,
+            prior_count)
+        return analysed, (iterations, zeta)
 
     inflated_search = with_inflation(search, pieces)
 
@@ -177,8 +242,9 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
         del key, settings
         zero = jnp.asarray(0, jnp.int32)
         return IEnKSState(members=initial_ensemble, start=initial_ensemble, obs=jnp.zeros((window, p)),
-                          held=zero, pending=zero,
-                          lagged=jnp.broadcast_to(initial_ensemble, (lag,) + initial_ensemble.shape))
+                          held=zero, pending=zero, used=jnp.zeros(window),
+                          lagged=jnp.broadcast_to(initial_ensemble, (lag,) + initial_ensemble.shape),
+                          inflation=jnp.asarray(1.0))
 
     def analyse(key, state, y, settings):
         held, pending = state.held + 1, state.pending + 1
@@ -186,20 +252,31 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
 
         def assimilate(_):
             positions = jnp.arange(window)
-            mask = ((positions >= held - pending) & (positions < held)).astype(jnp.float64)
-            analysed_start, iterations = inflated_search(key, state.start, (obs, mask), settings)
+            held_now = positions < held
+            # What brings every held observation to its full weight from the start ensemble.
+            rest = jnp.where(held_now, 1.0 - state.used, 0.0)
+            weights = jnp.where(held_now, shift / window, 0.0) if multiple else rest
+            analysed_start, (iterations, zeta) = inflated_search(key, state.start, (obs, weights), settings)
             trajectory, _ = forecast_window(analysed_start, advance, operator, settings["forecast_model"], window)
+            searches = 1
+            if multiple:  # the balancing search: the current and smoothed ensembles see every observation fully
+                final_start, (balancing, _) = inflated_search(key, state.start, (obs, rest), settings)
+                final, _ = forecast_window(final_start, advance, operator, settings["forecast_model"], window)
+                iterations, searches = iterations + balancing, 2
+            else:
+                final_start, final = analysed_start, trajectory
             # Slide so that the next `shift` observations fit: m = held - (L - S) intervals, if positive.
             slide = jnp.maximum(held - (window - shift), 0)
             new_start = jnp.where(slide > 0, trajectory[jnp.maximum(slide - 1, 0)], analysed_start)
-            current = trajectory[held - 1]
-            integrations = (iterations + 1) * window * members
-            # Lag l: M_(held - l)(E_0*) = trajectory[held - 1 - l] while l < held, else E_0* itself.
+            used = jnp.roll(jnp.where(held_now, state.used + weights, 0.0), -slide)
+            integrations = (iterations + searches) * window * members
+            # Lag l: M_(held - l)(E_0*) = final[held - 1 - l] while l < held, else E_0* itself.
             lags = jnp.arange(1, lag + 1)
-            lagged = jnp.where((lags < held)[:, None, None], trajectory[jnp.maximum(held - 1 - lags, 0)],
-                               analysed_start[None])
-            return (IEnKSState(members=current, start=new_start, obs=jnp.roll(obs, -slide, axis=0),
-                               held=held - slide, pending=jnp.asarray(0, jnp.int32), lagged=lagged),
+            lagged = jnp.where((lags < held)[:, None, None], final[jnp.maximum(held - 1 - lags, 0)], final_start[None])
+            return (IEnKSState(members=final[held - 1], start=new_start, obs=jnp.roll(obs, -slide, axis=0),
+                               held=held - slide, pending=jnp.asarray(0, jnp.int32),
+                               used=jnp.where(positions < held - slide, used, 0.0), lagged=lagged,
+                               inflation=jnp.sqrt((members - 1.0) / zeta)),
                     iterations, integrations)
 
         def wait(_):
@@ -209,9 +286,12 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
         new_state, iterations, integrations = jax.lax.cond(pending == shift, assimilate, wait, None)
         # The cycle's own forecast of the members counts too: N member-intervals.
         info = {"iterations": iterations, "model_integrations": jnp.asarray(integrations + members, jnp.float64)}
+        if prior_count is not None:
+            info["inflation"] = new_state.inflation
         return new_state, info
 
-    return Filter(name="ienks", members=members, init=init, analyse=analyse)
+    return Filter(name="ienks", members=members, init=init, analyse=analyse,
+                  reports_inflation=prior_count is not None)
 
 
 @dataclass
@@ -220,7 +300,10 @@ class IEnKSConfig(InflationConfig):
     (window = shift = 1: the iterative EnKF); Gauss-Newton in ensemble space for at most
     ``max_iterations`` steps, stopped when the increment's rms in prior standard deviations is below
     ``tolerance``; ``variant`` transform (anomalies rescaled by the last transform) or bundle
-    (anomalies scaled by ``bundle_scale``, a finite-difference step); transform_solver as for the ETKF."""
+    (anomalies scaled by ``bundle_scale``, a finite-difference step); ``assimilation`` single (each
+    observation once) or multiple (its weight split over the windows that see it, and a balancing
+    search); ``prior`` gaussian or finite_size (the EnKF-N's, count members + prior_extra_count:
+    leave inflation at 1); transform_solver as for the ETKF (the Gaussian prior's)."""
 
     name: str = "ienks"
     window: int = 1
@@ -229,6 +312,9 @@ class IEnKSConfig(InflationConfig):
     tolerance: float = 1e-3
     variant: str = "transform"
     bundle_scale: float = 1e-4
+    assimilation: str = "single"
+    prior: str = "gaussian"
+    prior_extra_count: int = 1
     transform_solver: str = "eigh"
 
 
@@ -243,16 +329,32 @@ def _check(c, model) -> None:
     if c.node.variant not in VARIANTS:
         c.fail("variant", c.node.variant, " or ".join(VARIANTS))
     c.real("bundle_scale", "a finite number > 0", minimum=0.0)
+    if c.node.assimilation not in ASSIMILATIONS:
+        c.fail("assimilation", c.node.assimilation, " or ".join(ASSIMILATIONS))
+    if c.node.assimilation == "multiple" and window % int(c.node.shift):
+        c.fail("assimilation", c.node.assimilation,
+               f"single with window {window} and shift {c.node.shift} (multiple needs a shift that divides the window)")
+    if c.node.prior not in PRIORS:
+        c.fail("prior", c.node.prior, " or ".join(PRIORS))
+    c.integer("prior_extra_count", 0, "0 (count N, Bocquet 2011) or 1 (N + 1, Bocquet et al. 2015)", maximum=1)
     check_transform_solver(c)
 
 
 TRACED = INFLATION_KEYS + ("tolerance", "bundle_scale")
 
 
+def step_counts(node) -> range:
+    """The Gauss-Newton steps a cycle can report: 0 while observations wait (shift > 1), else one to
+    max_iterations per search (two searches with multiple data assimilation)."""
+    searches = 2 if node.assimilation == "multiple" else 1
+    return range(0 if int(node.shift) > 1 else searches, searches * int(node.max_iterations) + 1)
+
+
 def _build(node, ctx) -> Filter:
     return make_ienks(ctx.model, ctx.operator, int(node.members), int(node.window), int(node.shift),
                       int(node.max_iterations), str(node.variant), ctx.steps_per_interval, inflation_pieces(node),
-                      str(node.transform_solver), ctx.smoother_lag)
+                      str(node.transform_solver), ctx.smoother_lag, str(node.assimilation), str(node.prior),
+                      int(node.prior_extra_count))
 
 
 SPEC = FilterSpec(
@@ -264,6 +366,8 @@ SPEC = FilterSpec(
     traced=TRACED,
     widest=WIDEST,
     iterative=True,
+    step_counts=step_counts,
+    reports_inflation=lambda node: node.prior == "finite_size",
     smoothable=lambda node: int(node.shift) == 1,
     lag_limit=lambda node: int(node.window),
 )

@@ -165,5 +165,5 @@ SPEC = FilterSpec(
     widest=WIDEST + ("radius",),
     kalman_exact=True,
     reports_inflation=lambda node: bool(node.adaptive),
-    smoothable=lambda node: not node.adaptive,
+    smoothable=lambda node: True,
 )
