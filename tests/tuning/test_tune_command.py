@@ -125,7 +125,8 @@ def test_a_bad_study_is_refused_in_one_line_and_writes_nothing(arguments, words,
 # later with a setting not listed here makes the test fail until its bounds are added.
 TEST_BOUNDS = {"inflation": (1.0, 1.2), "additive_std": (0.0, 0.2), "rtpp": (0.0, 0.5), "rtps": (0.0, 0.5),
                "adaptive_std": (0.05, 0.2), "radius": (2.0, 8.0), "b_scale": (0.05, 0.5), "jitter": (0.0, 0.2),
-               "ess_threshold": (0.3, 0.8), "tolerance": (1e-4, 1e-2), "bundle_scale": (1e-5, 1e-3)}
+               "ess_threshold": (0.3, 0.8), "tolerance": (1e-4, 1e-2), "bundle_scale": (1e-5, 1e-3),
+               "ensemble_weight": (0.0, 1.0), "static_scale": (0.05, 0.5)}
 
 
 @pytest.mark.parametrize("spec", [s for s in catalogue().filters.values() if s.traced], ids=lambda s: s.name)
