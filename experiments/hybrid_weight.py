@@ -17,6 +17,7 @@ import argparse
 import os
 
 import matplotlib
+import matplotlib.ticker
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
@@ -82,6 +83,10 @@ def main() -> int:
         halves = np.array([points[b][1] for b in WEIGHTS])
         axes.errorbar(WEIGHTS, means, yerr=halves, marker="o", capsize=3, label=f"{members} members")
     axes.set_yscale("log")
+    # Plain numbers at 1, 2 and 5 of each decade, not powers of ten, on the log axis.
+    axes.yaxis.set_major_locator(matplotlib.ticker.LogLocator(subs=(1.0, 2.0, 5.0)))
+    axes.yaxis.set_major_formatter(matplotlib.ticker.FormatStrFormatter("%.2g"))
+    axes.yaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
     axes.set_xlabel("ensemble weight beta (0: static covariance, 1: localized ensemble)")
     axes.set_ylabel("analysis RMSE (95% interval)")
     axes.set_title("3DEnVar on the coastal ring, every second site")
