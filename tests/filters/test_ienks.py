@@ -250,6 +250,12 @@ def test_the_run_reports_iterations_and_cost_and_compiles_once_for_every_toleran
     # A tighter tolerance never takes fewer steps on the same data.
     assert np.all(iterations[1] >= iterations[0])
     np.testing.assert_array_equal(result.series["model_integrations"], (iterations + 1) * 1 * 3 + 3)
+    # The summary's distribution: the share of cycles after burn-in at each step count, 1 to the cap.
+    after = iterations[:, :, 10:]
+    shares = np.array([result.summary[f"iterations_share{k}"] for k in range(1, 11)])  # (steps, lane)
+    np.testing.assert_allclose(shares, [(after == k).mean(axis=(1, 2)) for k in range(1, 11)], rtol=0, atol=1e-12)
+    np.testing.assert_allclose(shares.sum(axis=0), 1.0, rtol=0, atol=1e-12)
+    assert "iterations_share0" not in result.summary  # shift 1: every cycle analyses
 
 
 @pytest.mark.parametrize("override, message", [
