@@ -189,16 +189,18 @@ def format_summary(result, path, title: str) -> str:
                      f"{s['spread_skill_ratio_analysis']:>22.4f}   (ratio of the time means)")
     for label, name in (("innovation ratio", "innovation_ratio"), ("Desroziers R", "desroziers_r"),
                         ("Desroziers HBH^T", "desroziers_hbht"), ("ESS", "ess"),
-                        ("Gauss-Newton steps", "iterations"), ("members x intervals", "model_integrations")):
+                        ("Gauss-Newton steps", "iterations"), ("member-intervals", "model_integrations")):
         if name in s:
             lines.append(f"  {label:<20}{_cell(s, name)}")
     shares = {int(name[len("iterations_share"):]): s[name] for name in s
               if name.startswith("iterations_share") and name[len("iterations_share"):].isdigit()}
     if shares:
-        seen = ", ".join(f"{steps}: {100 * share:.0f}%" for steps, share in sorted(shares.items()) if share >= 0.005)
-        rare = [str(steps) for steps, share in sorted(shares.items()) if 0 < share < 0.005]
-        lines.append(f"  {'steps per cycle':<20}{seen}" + (f"; {', '.join(rare)}: under 0.5%" if rare else "")
-                     + "   (share of cycles after burn-in)")
+        # A share is printed as a whole percent when it rounds to one or more, else listed as under 1%.
+        seen = ", ".join(f"{steps}: {round(100 * share)}%" for steps, share in sorted(shares.items())
+                         if round(100 * share) >= 1)
+        rare = [str(steps) for steps, share in sorted(shares.items()) if 0 < share and round(100 * share) < 1]
+        lines.append(f"  {'steps per cycle':<20}{seen}" + (f"; {', '.join(rare)}: under 1%" if rare else "")
+                     + "   (share of cycles after burn-in; both searches' steps with multiple assimilation)")
     if climate is not None:
         lines += reference_lines(s, config, float(climate))
     if result.diverged:

@@ -38,6 +38,8 @@ FILTER_WORDS = {
     "enkfn": "EnKF-N",
     "ensrf": "EnSRF",
     "denkf": "DEnKF",
+    "ienks": "IEnKS",
+    "3denvar": "3DEnVar",
     "free": "free run",
     "climatology": "climatology",
 }

@@ -278,5 +278,5 @@ def test_bad_window_settings_are_one_line(override, message):
 def test_multiple_data_assimilation_needs_a_shift_that_divides_the_window():
     with pytest.raises(ConfigError) as caught:
         resolve(compose_config(["filter=ienks", "filter.window=3", "filter.shift=2", "filter.assimilation=multiple"]))
-    assert str(caught.value) == ("filter.assimilation='multiple' is not allowed: single with window 3 and shift 2 "
-                                 "(multiple needs a shift that divides the window)")
+    assert str(caught.value) == ("filter.assimilation='multiple' is not allowed: single, or multiple with a shift "
+                                 "that divides the window (here window 3, shift 2)")

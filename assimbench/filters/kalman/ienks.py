@@ -224,7 +224,8 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
     advance = make_model_flow(model, steps_per_interval, ensemble=True)
     p = operator.size
     prior_count = float(members + prior_extra_count) if prior == "finite_size" else None
-    multiple = assimilation == "multiple"
+    # With the window equal to the shift every observation is seen once: multiple is single.
+    multiple = assimilation == "multiple" and window > shift
 
     def search(key, start, window_obs, settings):
         del key  # deterministic
@@ -333,7 +334,8 @@ def _check(c, model) -> None:
         c.fail("assimilation", c.node.assimilation, " or ".join(ASSIMILATIONS))
     if c.node.assimilation == "multiple" and window % int(c.node.shift):
         c.fail("assimilation", c.node.assimilation,
-               f"single with window {window} and shift {c.node.shift} (multiple needs a shift that divides the window)")
+               f"single, or multiple with a shift that divides the window (here window {window}, shift "
+               f"{c.node.shift})")
     if c.node.prior not in PRIORS:
         c.fail("prior", c.node.prior, " or ".join(PRIORS))
     c.integer("prior_extra_count", 0, "0 (count N, Bocquet 2011) or 1 (N + 1, Bocquet et al. 2015)", maximum=1)
@@ -346,7 +348,7 @@ TRACED = INFLATION_KEYS + ("tolerance", "bundle_scale")
 def step_counts(node) -> range:
     """The Gauss-Newton steps a cycle can report: 0 while observations wait (shift > 1), else one to
     max_iterations per search (two searches with multiple data assimilation)."""
-    searches = 2 if node.assimilation == "multiple" else 1
+    searches = 2 if node.assimilation == "multiple" and int(node.window) > int(node.shift) else 1
     return range(0 if int(node.shift) > 1 else searches, searches * int(node.max_iterations) + 1)
 
 
