@@ -238,11 +238,11 @@ def test_a_sweep_of_a_smoother_and_an_iterative_filter_gets_its_figures_and_one_
     out = tmp_path / "report"
     assert command.main([str(tmp_path / "sweep"), "--out", str(out)]) == 0
     printed = capsys.readouterr().out
-    assert "e1 ETKF, 3 members: best inflation" in printed and "e1 IENKS, 3 members: best inflation" in printed
+    assert "e1 ETKF, 3 members: best inflation" in printed and "e1 IEnKS, 3 members: best inflation" in printed
     assert "None" not in printed
     compared = _read_csv(out / "paired.csv")
     assert [(r["kind"], {r["a"], r["b"]}) for r in compared if r["kind"] == "filters"] == [
-        ("filters", {"ETKF, 3 members (tuned)", "IENKS, 3 members (tuned)"})]
+        ("filters", {"ETKF, 3 members (tuned)", "IEnKS, 3 members (tuned)"})]
     for name in ("error_by_lag_e1", "error_against_cost_e1"):
         assert (out / f"{name}.png").read_bytes()[:8] == PNG_MAGIC, name
     settings, _ = pool(collect([str(tmp_path / "sweep")])[0])
