@@ -10,7 +10,6 @@ import assimbench
 from assimbench.config.checks import ConfigError
 from assimbench.config.composition import compose_config
 from assimbench.config.plan import resolve
-from assimbench.filters.base import EnsembleState
 from assimbench.filters.kalman.enkfn import make_enkfn
 from assimbench.filters.kalman.etkf import make_etkf
 from assimbench.filters.kalman.ienks import make_ienks
@@ -50,24 +49,27 @@ def _settings(inflation=1.0, tolerance=1e-6, bundle_scale=1e-4):
             "observation": {"error_std": ERROR_STD}, "forecast_model": {}}
 
 
+def _side_by_side(first, second, flow, settings, cycles, seed=1):
+    """Cycle two filters from one initial ensemble on one set of observations (every_kth(SIZE, 2));
+    yield per cycle (k, first's state, its info, second's state, its info), k from 1."""
+    rng = np.random.default_rng(seed)
+    ensemble = jnp.asarray(rng.standard_normal((MEMBERS, SIZE)))
+    key = jax.random.PRNGKey(0)
+    states = [first.init(key, ensemble, settings), second.init(key, ensemble, settings)]
+    for k in range(1, cycles + 1):
+        y = jnp.asarray(rng.standard_normal(every_kth(SIZE, 2).size))
+        (state_a, info_a), (state_b, info_b) = [
+            f.analyse(key, state._replace(members=flow(state.members, {})), y, settings)
+            for f, state in zip((first, second), states)]
+        states = [state_a, state_b]
+        yield k, state_a, info_a, state_b, info_b
+
+
 def _cycle_both(smoother, etkf, flow, settings, cycles, seed=1):
     """Cycle the smoother and the ETKF from one initial ensemble on one set of observations; return
     per cycle (smoother members, ETKF members, smoother info)."""
-    rng = np.random.default_rng(seed)
-    ensemble = jnp.asarray(rng.standard_normal((MEMBERS, SIZE)))
-    operator = every_kth(SIZE, 2)
-    key = jax.random.PRNGKey(0)
-    state_s = smoother.init(key, ensemble, settings)
-    state_e = etkf.init(key, ensemble, settings)
-    out = []
-    for _ in range(cycles):
-        y = jnp.asarray(rng.standard_normal(operator.size))
-        state_s = state_s._replace(members=flow(state_s.members, {}))
-        state_e = EnsembleState(members=flow(state_e.members, {}))
-        state_s, info = smoother.analyse(key, state_s, y, settings)
-        state_e, _ = etkf.analyse(key, state_e, y, settings)
-        out.append((np.asarray(state_s.members), np.asarray(state_e.members), info))
-    return out
+    return [(np.asarray(ours.members), np.asarray(theirs.members), info)
+            for _, ours, info, theirs, _ in _side_by_side(smoother, etkf, flow, settings, cycles, seed)]
 
 
 @pytest.mark.parametrize("window, variant, inflation", [(1, "transform", 1.0), (1, "transform", 1.15),
@@ -124,15 +126,7 @@ def test_its_smoothed_ensembles_are_the_ensemble_smoothers_on_a_linear_problem()
     flow = jax.jit(make_model_flow(model, 1, ensemble=True))
     smoother = _ienks(model, operator, MEMBERS, 3, 1, 10, "transform", 1, lag=3)
     reference = _etkf(operator, 3)
-    rng = np.random.default_rng(2)
-    key = jax.random.PRNGKey(0)
-    settings = _settings(1.0)
-    ensemble = jnp.asarray(rng.standard_normal((MEMBERS, SIZE)))
-    ours, theirs = smoother.init(key, ensemble, settings), reference.init(key, ensemble, settings)
-    for k in range(1, 9):
-        y = jnp.asarray(rng.standard_normal(operator.size))
-        ours, _ = smoother.analyse(key, ours._replace(members=flow(ours.members, {})), y, settings)
-        theirs, _ = reference.analyse(key, theirs._replace(members=flow(theirs.members, {})), y, settings)
+    for k, ours, _, theirs, _ in _side_by_side(smoother, reference, flow, _settings(1.0), 8, seed=2):
         for lag in range(1, min(k, 3) + 1):
             np.testing.assert_allclose(np.asarray(ours.lagged[lag - 1]), np.asarray(theirs.lagged[lag - 1]),
                                        rtol=0, atol=1e-10, err_msg=f"cycle {k}, lag {lag}")
@@ -190,15 +184,7 @@ def test_its_smoothed_ensembles_with_multiple_data_assimilation_are_the_smoother
     flow = jax.jit(make_model_flow(model, 1, ensemble=True))
     smoother = _ienks(model, operator, MEMBERS, 3, 1, 10, "transform", 1, lag=3, assimilation="multiple")
     reference = _etkf(operator, 3)
-    rng = np.random.default_rng(6)
-    key = jax.random.PRNGKey(0)
-    settings = _settings()
-    ensemble = jnp.asarray(rng.standard_normal((MEMBERS, SIZE)))
-    ours, theirs = smoother.init(key, ensemble, settings), reference.init(key, ensemble, settings)
-    for k in range(1, 9):
-        y = jnp.asarray(rng.standard_normal(operator.size))
-        ours, _ = smoother.analyse(key, ours._replace(members=flow(ours.members, {})), y, settings)
-        theirs, _ = reference.analyse(key, theirs._replace(members=flow(theirs.members, {})), y, settings)
+    for k, ours, _, theirs, _ in _side_by_side(smoother, reference, flow, _settings(), 8, seed=6):
         for lag in range(1, min(k, 3) + 1):
             _assert_same_gaussian(np.asarray(ours.lagged[lag - 1]), np.asarray(theirs.lagged[lag - 1]), 1e-9,
                                   f"cycle {k}, lag {lag}")
@@ -215,16 +201,9 @@ def test_the_finite_size_prior_over_one_interval_converges_to_the_enkfn_on_a_lin
     flow = jax.jit(make_model_flow(model, 1, ensemble=True))
     smoother = _ienks(model, operator, MEMBERS, 1, 1, 50, variant, 1, prior="finite_size")
     enkfn = _jitted(make_enkfn(operator, MEMBERS))
-    rng = np.random.default_rng(10)
-    key = jax.random.PRNGKey(0)
-    settings = _settings(tolerance=1e-12)
-    ensemble = jnp.asarray(rng.standard_normal((MEMBERS, SIZE)))
-    ours, theirs = smoother.init(key, ensemble, settings), enkfn.init(key, ensemble, settings)
     steps = []
-    for k in range(1, 11):
-        y = jnp.asarray(rng.standard_normal(operator.size))
-        ours, info = smoother.analyse(key, ours._replace(members=flow(ours.members, {})), y, settings)
-        theirs, their_info = enkfn.analyse(key, theirs._replace(members=flow(theirs.members, {})), y, settings)
+    for k, ours, info, theirs, their_info in _side_by_side(smoother, enkfn, flow, _settings(tolerance=1e-12), 10,
+                                                           seed=10):
         np.testing.assert_allclose(np.asarray(ours.members), np.asarray(theirs.members), rtol=0, atol=1e-8,
                                    err_msg=f"cycle {k}")
         np.testing.assert_allclose(float(info["inflation"]), float(their_info["inflation"]), rtol=1e-9)
