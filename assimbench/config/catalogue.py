@@ -13,7 +13,7 @@ from assimbench.config.spec import FilterSpec, NetworkSpec
 from assimbench.filters import reference
 from assimbench.filters.kalman import denkf, enkf, enkfn, ensrf, etkf, ienks, letkf
 from assimbench.filters.particle import sir
-from assimbench.filters.variational import envar, fourdvar, threedvar
+from assimbench.filters.variational import envar, fourdenvar, fourdvar, threedvar
 from assimbench.models import base, closure, kuramoto_sivashinsky, lorenz63, lorenz96
 from assimbench.observations import networks
 
@@ -22,7 +22,7 @@ BUILT_IN_MODELS = (lorenz96.SPEC, lorenz63.SPEC, lorenz96.TWO_SCALE_SPEC, kuramo
 BUILT_IN_DERIVED_MODELS = (base.SAME_SPEC, closure.SPEC)
 BUILT_IN_FILTERS = (etkf.SPEC, enkf.SPEC, letkf.SPEC, ensrf.SPEC, threedvar.SPEC, fourdvar.SPEC, enkfn.SPEC,
                     sir.SPEC, reference.FREE_SPEC, reference.CLIMATOLOGY_SPEC, denkf.SPEC, ienks.SPEC,
-                    envar.SPEC)
+                    envar.SPEC, fourdenvar.SPEC)
 
 
 class Catalogue(NamedTuple):

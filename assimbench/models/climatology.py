@@ -1,6 +1,6 @@
 """Climatological mean and covariance of a model from one long free run.
 
-Used by 3D-Var and 4D-Var (B = b_scale x climatological covariance), by the
+Used by the variational and hybrid filters (B = a scale x climatological covariance), by the
 climatology reference run, by the divergence rule and by fitted closures. One
 trajectory per model setting: states SPACING apart after the model's spin-up
 from its first guess, drawn in blocks of BLOCK states and extended only as far

@@ -13,6 +13,8 @@ SETTING_WORDS = {
     "filter.rtpp": "RTPP",
     "filter.rtps": "RTPS",
     "filter.b_scale": "B scale",
+    "filter.static_scale": "static B scale",
+    "filter.ensemble_weight": "ensemble weight",
     "filter.jitter": "jitter",
     "filter.ess_threshold": "resampling threshold",
     "filter.adaptive": "adaptive inflation",
@@ -40,6 +42,7 @@ FILTER_WORDS = {
     "denkf": "DEnKF",
     "ienks": "IEnKS",
     "3denvar": "3DEnVar",
+    "4denvar": "4DEnVar",
     "free": "free run",
     "climatology": "climatology",
 }

@@ -30,7 +30,7 @@ BAD_INPUT = [
     (["filter=kalman"], ["filter=kalman", ", ".join(sorted(catalogue().filters))]),  # every filter is offered
     (["+filter.foo=1"], ["filter.foo is not a key", "filter etkf has", "inflation"]),
     (["+foo=1"], ["foo is not a key", "the experiment has", "cycles"]),
-    (["filter.radius=6"], ["filter.radius is not a key of filter etkf", "filter=3denvar|ensrf|letkf"]),
+    (["filter.radius=6"], ["filter.radius is not a key of filter etkf", "filter=3denvar|4denvar|4dvar|ensrf|letkf"]),
     (["observation=nowhere"], ["observation=nowhere", "every_station"]),
     (["cycles=abc"], ["cycles", "Integer"]),
     (["filter.members=ten"], ["filter.members", "Integer"]),

@@ -72,7 +72,7 @@ RUN = ["cycles=80", "burn_in=20", "chunk_cycles=30", "replicates=2"]
                                     "filter.members=8"]),
     ("forecast_model.forcing", [7.0, 9.0], ["model.size=12", "filter.members=8", "forecast_model=lorenz96",
                                             "forecast_model.size=12"]),
-    ("filter.b_scale", [0.05, 0.2], ["model.size=12", "filter=4dvar", "filter.window=2"]),
+    ("filter.static_scale", [0.05, 0.2], ["model.size=12", "filter=4dvar", "filter.window=2"]),
 ])
 def test_newer_lane_keys_equal_the_same_settings_run_one_by_one(lane_key, values, base):
     """Each lane key added with a new model or filter: a lane batch is the same computation as the

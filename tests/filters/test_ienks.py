@@ -5,6 +5,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 import pytest
+from linear_problem import jitted, linear_model, side_by_side
 
 import assimbench
 from assimbench.config.checks import ConfigError
@@ -15,23 +16,16 @@ from assimbench.filters.kalman.etkf import make_etkf
 from assimbench.filters.kalman.ienks import make_ienks
 from assimbench.filters.smoother import with_fixed_lag
 from assimbench.integrators import make_model_flow
-from assimbench.models.base import Model
 from assimbench.observations.operators import every_kth
 
 SIZE, MEMBERS, ERROR_STD = 6, 8, 0.7
 
 
 def _linear_model(seed=0):
-    """dx/dt = A x with A a random matrix of moderate growth; RK4 keeps the flow linear."""
-    rng = np.random.default_rng(seed)
-    matrix = jnp.asarray(0.4 * rng.standard_normal((SIZE, SIZE)) - 0.2 * np.eye(SIZE))
-    return Model(name="linear", size=SIZE, dt=0.05, tendency=lambda x, params: x @ matrix.T, params={},
-                 spinup_time=0.0, first_guess=lambda key, params: jnp.zeros(SIZE), ring=False)
+    return linear_model(SIZE, seed)
 
 
-def _jitted(filt):
-    """The filter with a compiled analysis: one compile per filter instead of eager tracing every cycle."""
-    return filt._replace(analyse=jax.jit(filt.analyse))
+_jitted = jitted
 
 
 def _ienks(*args, **kwargs):
@@ -50,19 +44,7 @@ def _settings(inflation=1.0, tolerance=1e-6, bundle_scale=1e-4):
 
 
 def _side_by_side(first, second, flow, settings, cycles, seed=1):
-    """Cycle two filters from one initial ensemble on one set of observations (every_kth(SIZE, 2));
-    yield per cycle (k, first's state, its info, second's state, its info), k from 1."""
-    rng = np.random.default_rng(seed)
-    ensemble = jnp.asarray(rng.standard_normal((MEMBERS, SIZE)))
-    key = jax.random.PRNGKey(0)
-    states = [first.init(key, ensemble, settings), second.init(key, ensemble, settings)]
-    for k in range(1, cycles + 1):
-        y = jnp.asarray(rng.standard_normal(every_kth(SIZE, 2).size))
-        (state_a, info_a), (state_b, info_b) = [
-            f.analyse(key, state._replace(members=flow(state.members, {})), y, settings)
-            for f, state in zip((first, second), states)]
-        states = [state_a, state_b]
-        yield k, state_a, info_a, state_b, info_b
+    return side_by_side(first, second, flow, settings, cycles, MEMBERS, SIZE, seed)
 
 
 def _cycle_both(smoother, etkf, flow, settings, cycles, seed=1):

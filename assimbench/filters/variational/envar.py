@@ -29,7 +29,8 @@ exact minimiser with h linearised at the current iterate, as the 3D-Var
 ETKF's (both minimise the same quadratic; tested).
 
 The members: the ETKF's perturbation update (the LETKF's with the same
-radius, when localized; transforms by Newton-Schulz products, see SOLVER)
+radius, when localized; transforms by Newton-Schulz products, see
+:mod:`assimbench.filters.variational.hybrid`)
 of the inflated forecast ensemble, recentred on the
 variational mean x_a (common practice in hybrid systems: the ensemble keeps
 its own analysis of the spread, the mean comes from the variational
@@ -41,26 +42,24 @@ from dataclasses import dataclass
 import jax.numpy as jnp
 import numpy as np
 
-from assimbench.config.spec import FilterSpec, floats
-from assimbench.filters.kalman.etkf import etkf_analysis
+from assimbench.config.spec import FilterSpec
 from assimbench.filters.kalman.inflation import (
-    INFLATION_KEYS,
     WIDEST,
     InflationConfig,
     check_inflation,
     ensemble_filter,
     inflation_pieces,
 )
-from assimbench.filters.kalman.letkf import letkf_analysis, local_windows
+from assimbench.filters.variational.hybrid import (
+    HYBRID_TRACED,
+    check_hybrid_weights,
+    hybrid_settings,
+    make_perturbation_update,
+    recentred,
+)
 from assimbench.filters.variational.threedvar import gauss_newton_3dvar
-from assimbench.localization import check_radius, gaspari_cohn, radius_of, radius_setting, ring_distance
+from assimbench.localization import check_radius, gaspari_cohn, radius_of, ring_distance
 from assimbench.models.climatology import climatology
-
-# The perturbation update forms its transforms by matrix products only. With LAPACK's batched eigh
-# beside the variational solve in one program, 30 runs of 20 members deadlocked XLA's CPU runtime
-# (every thread waiting, measured with jax 0.10.2; 10 members or the ETKF path did not); the
-# products are tested against eigh cycle by cycle for the ETKF and LETKF.
-SOLVER = "newton_schulz"
 
 
 def hybrid_covariance(members, climate_cov, ensemble_weight, static_scale, taper):
@@ -78,8 +77,8 @@ def make_3denvar(model, operator, climate_cov, members: int, radius: float | Non
     static observation windows (2 radius); None: no localization anywhere."""
     climate_cov = jnp.asarray(climate_cov)
     steps = 1 if operator.linear else iterations
+    perturbation_update = make_perturbation_update(model.size, operator, radius)
     if radius is not None:
-        index, distance, mask = local_windows(model.size, operator.positions, radius)
         grid = np.arange(model.size, dtype=np.float64)
         grid_distance = jnp.asarray(ring_distance(grid[:, None], grid[None, :], model.size))
 
@@ -87,16 +86,10 @@ def make_3denvar(model, operator, climate_cov, members: int, radius: float | Non
         del key  # deterministic
         f = settings["filter"]
         error_var = settings["observation"]["error_std"] ** 2
-        if radius is None:
-            taper = 1.0
-            perturbed = etkf_analysis(prior, operator(prior), y, error_var, SOLVER)
-        else:
-            taper = gaspari_cohn(grid_distance / f["radius"])
-            weights = jnp.where(mask, gaspari_cohn(distance / f["radius"]), 0.0)
-            perturbed = letkf_analysis(prior, operator(prior), y, error_var, index, weights, SOLVER)
+        taper = 1.0 if radius is None else gaspari_cohn(grid_distance / f["radius"])
         b_cov = hybrid_covariance(prior, climate_cov, f["ensemble_weight"], f["static_scale"], taper)
         mean = gauss_newton_3dvar(prior.mean(axis=0), y, b_cov, error_var, operator, steps)[-1]
-        return mean + perturbed - perturbed.mean(axis=0), {}
+        return recentred(mean, perturbation_update(prior, y, error_var, f)), {}
 
     return ensemble_filter("3denvar", members, update, pieces)
 
@@ -115,19 +108,11 @@ class ThreeDEnVarConfig(InflationConfig):
     iterations: int = 3
 
 
-TRACED = INFLATION_KEYS + ("ensemble_weight", "static_scale", "radius")
-
-
 def _check(c, model) -> None:
     check_inflation(c)
-    c.real("ensemble_weight", "a weight from 0 to 1", minimum=0.0, strict=False, maximum=1.0)
-    c.real("static_scale", "a finite factor > 0", minimum=0.0)
+    check_hybrid_weights(c)
     check_radius(c, model)
     c.integer("iterations", 1, "an integer >= 1")
-
-
-def _settings(node) -> dict:
-    return {**floats(node, INFLATION_KEYS + ("ensemble_weight", "static_scale")), **radius_setting(node)}
 
 
 SPEC = FilterSpec(
@@ -135,9 +120,9 @@ SPEC = FilterSpec(
     schema=ThreeDEnVarConfig,
     build=lambda node, ctx: make_3denvar(ctx.model, ctx.operator, climatology(ctx.model)[1], int(node.members),
                                          radius_of(node), int(node.iterations), inflation_pieces(node)),
-    settings=_settings,
+    settings=hybrid_settings,
     check=_check,
-    traced=TRACED,
+    traced=HYBRID_TRACED,
     widest=WIDEST + ("radius",),
     climatology=True,
 )

@@ -8,7 +8,7 @@ Thepaut & Hollingsworth 1994, Q. J. R. Meteorol. Soc. 120)
              + 1/2 sum_{j=1..W} m_j (y_j - h(M_j(x_0)))^T R^-1 (y_j - h(M_j(x_0))),
 
 M_j the model over j intervals, m_j = 1 for the observations the window
-holds (0 while it fills during the first W - 1 cycles), B = b_scale x the
+holds (0 while it fills during the first W - 1 cycles), B = static_scale x the
 forecast model's climatological covariance, R = error_std^2 I. With the
 control variable x_0 = x_b + L v (B = L L^T, Cholesky) the cost is
 J(v) = |v|^2 / 2 + |e(v)|^2 / 2 for the scaled residuals e. It is minimised
@@ -22,6 +22,17 @@ Cycling: the window ends at the current cycle k. The analysis at k is
 M_W(x_0*) (M_m while the window holds only m < W observations); the window
 then slides by one interval, with the background of its new start
 M_1(x_0*), the analysed trajectory (a sliding, overlapping window).
+
+Hybrid 4D-Var (``members`` >= 2): B at the window start is the hybrid
+(1 - beta) s B_c + beta (P_e o C) of the 3DEnVar, P_e from the analysis
+anomalies of the window start's cycle (times ``inflation``), and L is its
+square root U (n, m) of :func:`assimbench.filters.variational.hybrid.hybrid_factor`
+(the control v has m entries; the adjoint carries the ensemble covariance
+across the window as the tangent-linear model evolves it). The members are
+the ETKF's (LETKF's with a radius) perturbation update of the inflated
+forecast ensemble, recentred on the analysis, as for the 3DEnVar and the
+4DEnVar; with beta = 1, no localization and a linear model this is the
+4DEnVar (tested). ``members`` = 1 is the pure 4D-Var and carries no ensemble.
 """
 
 from dataclasses import dataclass
@@ -31,10 +42,30 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from assimbench.config.spec import FilterSpec, floats
+from assimbench.config.spec import FilterSpec
 from assimbench.filters.base import Filter
-from assimbench.filters.variational.threedvar import check_b_scale
+from assimbench.filters.kalman.inflation import (
+    WIDEST,
+    InflationConfig,
+    check_inflation,
+    inflation_pieces,
+    with_inflation,
+)
+from assimbench.filters.variational.hybrid import (
+    HYBRID_TRACED,
+    WindowEnsembleState,
+    check_hybrid_weights,
+    circulant_taper_root,
+    hybrid_factor,
+    hybrid_settings,
+    init_window_ensemble,
+    make_perturbation_update,
+    push_anomalies,
+    recentred,
+    slide_window,
+)
 from assimbench.integrators import make_model_flow
+from assimbench.localization import check_radius, radius_of
 from assimbench.models.climatology import climatology
 
 
@@ -51,7 +82,7 @@ class FourDVarState(NamedTuple):
 
 
 def window_residuals(v, background, factor, obs, mask, error_std, advance, h, params):
-    """Scaled residuals e(v) (W, p): m_j (h(M_j(x_b + L v)) - y_j) / error_std; factor = L (n, n)."""
+    """Scaled residuals e(v) (W, p): m_j (h(M_j(x_b + L v)) - y_j) / error_std; factor = L (n, m)."""
     x0 = background + factor @ v
 
     def step(x, _):
@@ -102,17 +133,17 @@ def minimise_window(background, factor, obs, mask, error_std, advance, h, params
 
         return v + conjugate_gradients(hessian, -gradient, inner_iterations), None
 
-    v, _ = jax.lax.scan(outer, jnp.zeros(background.shape[0]), None, length=iterations)
+    v, _ = jax.lax.scan(outer, jnp.zeros(factor.shape[1]), None, length=iterations)
     return v
 
 
 def make_4dvar(model, operator, climate_cov, window: int, iterations: int, inner_iterations: int,
                steps_per_interval: int) -> Filter:
-    """Sliding-window strong-constraint 4D-Var with the forecast ``model``; ``settings["filter"]["b_scale"]``
+    """Sliding-window strong-constraint 4D-Var with the forecast ``model``; ``settings["filter"]["static_scale"]``
     multiplies the climatological covariance (n, n)."""
 
     advance = make_model_flow(model, steps_per_interval)
-    # Cholesky factor of the climatological covariance; B = b_scale C, so L = sqrt(b_scale) L_C.
+    # Cholesky factor of the climatological covariance; B = s C, so L = sqrt(s) L_C.
     climate_factor = jnp.asarray(np.linalg.cholesky(np.asarray(climate_cov)))
     p = operator.size
 
@@ -124,57 +155,111 @@ def make_4dvar(model, operator, climate_cov, window: int, iterations: int, inner
 
     def analyse(key, state, y, settings):
         del key
-        full = state.filled == window
-        start = jnp.where(full, state.shifted, state.start)
-        obs = jnp.where(full, jnp.roll(state.obs, -1, axis=0).at[-1].set(y), state.obs.at[state.filled].set(y))
-        filled = jnp.minimum(state.filled + 1, window)
-        mask = (jnp.arange(window) < filled).astype(jnp.float64)
-        factor = jnp.sqrt(settings["filter"]["b_scale"]) * climate_factor
-        error_std = settings["observation"]["error_std"]
-        params = settings["forecast_model"]
-        v = minimise_window(start, factor, obs, mask, error_std, advance, operator, params, iterations,
-                            inner_iterations)
-        x0 = start + factor @ v
-        trajectory = jax.lax.scan(lambda x, _: (advance(x, params),) * 2, x0, None, length=window)[1]
-        analysis = trajectory[filled - 1]
-        new_state = FourDVarState(members=analysis[None, :], start=start, shifted=trajectory[0], obs=obs,
-                                  filled=filled)
-        return new_state, {}
+        start, obs, filled, mask = slide_window(state.start, state.shifted, state.obs, state.filled, y, window)
+        factor = jnp.sqrt(settings["filter"]["static_scale"]) * climate_factor
+        analysis, shifted = analyse_window(start, factor, obs, mask, filled, settings, advance, operator, iterations,
+                                           inner_iterations, window)
+        return FourDVarState(members=analysis[None, :], start=start, shifted=shifted, obs=obs, filled=filled), {}
 
     return Filter(name="4dvar", members=1, init=init, analyse=analyse)
 
 
+def analyse_window(start, factor, obs, mask, filled, settings, advance, operator, iterations, inner_iterations,
+                   window):
+    """(analysis at the window's last observation, analysed state one interval after the start)."""
+    params = settings["forecast_model"]
+    v = minimise_window(start, factor, obs, mask, settings["observation"]["error_std"], advance, operator, params,
+                        iterations, inner_iterations)
+    x0 = start + factor @ v
+    trajectory = jax.lax.scan(lambda x, _: (advance(x, params),) * 2, x0, None, length=window)[1]
+    return trajectory[filled - 1], trajectory[0]
+
+
+def make_hybrid_4dvar(model, operator, climate_cov, members: int, window: int, radius: float | None,
+                      iterations: int, inner_iterations: int, steps_per_interval: int, pieces=frozenset()) -> Filter:
+    """Hybrid 4D-Var of the module docstring; settings["filter"] carries ensemble_weight, static_scale,
+    radius (traced) and the inflation pieces."""
+    advance = make_model_flow(model, steps_per_interval)
+    climate_factor = jnp.asarray(np.linalg.cholesky(np.asarray(climate_cov)))
+    perturbation_update = make_perturbation_update(model.size, operator, radius)
+
+    def update(key, prior, y_and_mean, settings):
+        del key  # deterministic
+        y, mean = y_and_mean
+        error_var = settings["observation"]["error_std"] ** 2
+        return recentred(mean, perturbation_update(prior, y, error_var, settings["filter"])), {}
+
+    update_members = with_inflation(update, pieces)
+
+    def init(key, initial_ensemble, settings):
+        del key, settings
+        return init_window_ensemble(initial_ensemble, window, operator.size)
+
+    def analyse(key, state, y, settings):
+        f = settings["filter"]
+        start, obs, filled, mask = slide_window(state.start, state.shifted, state.obs, state.filled, y, window)
+        root = None if radius is None else circulant_taper_root(model.size, f["radius"])
+        factor = hybrid_factor(f["inflation"] * state.past[0], climate_factor, f["ensemble_weight"], f["static_scale"],
+                               root)
+        analysis, shifted = analyse_window(start, factor, obs, mask, filled, settings, advance, operator, iterations,
+                                           inner_iterations, window)
+        analysed, info = update_members(key, state.members, (y, analysis), settings)
+        return WindowEnsembleState(members=analysed, start=start, shifted=shifted, obs=obs, filled=filled,
+                                   past=push_anomalies(state.past, analysed)), info
+
+    return Filter(name="4dvar", members=members, init=init, analyse=analyse)
+
+
 @dataclass
-class FourDVarConfig:
-    """Strong-constraint 4D-Var over a sliding window of ``window`` analysis intervals; B as for
-    3D-Var; ``iterations`` Gauss-Newton steps of ``inner_iterations`` conjugate gradients each."""
+class FourDVarConfig(InflationConfig):
+    """Strong-constraint 4D-Var over a sliding window of ``window`` analysis intervals, B =
+    static_scale B_c; ``iterations`` Gauss-Newton steps of ``inner_iterations`` conjugate gradients
+    each. With members >= 2, hybrid 4D-Var: B = (1 - ensemble_weight) static_scale B_c +
+    ensemble_weight (P_e o C), radius the Gaspari-Cohn half-width of C and of the LETKF perturbation
+    update (null: none), and the inflation pieces act on the ensemble."""
 
     name: str = "4dvar"
-    b_scale: float = 0.1
+    static_scale: float = 0.1
     window: int = 5
     iterations: int = 3
     inner_iterations: int = 10
+    members: int = 1
+    inflation: float = 1.0
+    ensemble_weight: float = 0.0
+    radius: float | None = None
 
 
 def _check(c, model) -> None:
-    check_b_scale(c)
+    c.integer("members", 1, "an integer >= 1 (1: pure 4D-Var; >= 2: hybrid with an ensemble)")
+    check_hybrid_weights(c)
+    if int(c.node.members) == 1:
+        if float(c.node.ensemble_weight) != 0.0:
+            c.fail("ensemble_weight", c.node.ensemble_weight,
+                   f"an ensemble weight needs an ensemble: set {c.name('members')} >= 2 (1 is the pure 4D-Var)")
+    else:
+        check_inflation(c)
+    check_radius(c, model)
     c.integer("iterations", 1, "an integer >= 1")
     c.integer("inner_iterations", 1, "an integer >= 1 (conjugate-gradient steps)")
     c.integer("window", 1, "an integer >= 1 (analysis intervals)")
 
 
 def _build(node, ctx) -> Filter:
-    return make_4dvar(ctx.model, ctx.operator, climatology(ctx.model)[1], int(node.window), int(node.iterations),
-                      int(node.inner_iterations), ctx.steps_per_interval)
+    if int(node.members) == 1:
+        return make_4dvar(ctx.model, ctx.operator, climatology(ctx.model)[1], int(node.window), int(node.iterations),
+                          int(node.inner_iterations), ctx.steps_per_interval)
+    return make_hybrid_4dvar(ctx.model, ctx.operator, climatology(ctx.model)[1], int(node.members), int(node.window),
+                             radius_of(node), int(node.iterations), int(node.inner_iterations),
+                             ctx.steps_per_interval, inflation_pieces(node))
 
 
 SPEC = FilterSpec(
     name="4dvar",
     schema=FourDVarConfig,
     build=_build,
-    settings=lambda node: floats(node, ("b_scale",)),
+    settings=hybrid_settings,
     check=_check,
-    traced=("b_scale",),
-    members=lambda node: 1,
+    traced=HYBRID_TRACED,
+    widest=WIDEST + ("radius",),
     climatology=True,
 )
