@@ -4,7 +4,8 @@ A card is a YAML file (see ``experiments/published/``) with keys
 ``title``, ``source``, ``overrides`` (a list), ``metric`` (a summary name),
 ``full`` and ``short`` (each ``cycles``, ``burn_in``, ``replicates``,
 ``band: [low, high]``), and optionally ``better_than`` / ``worse_than``
-naming another card whose measured metric this one must beat / trail, and
+naming another card (or a list of cards) whose measured metric this one must
+beat / trail, and
 ``tuned`` (setting -> [low, high]): where tuning that setting should land.
 """
 
@@ -24,9 +25,16 @@ class Card:
     overrides: list
     metric: str
     lengths: dict
-    better_than: str | None = None
-    worse_than: str | None = None
+    better_than: tuple = ()
+    worse_than: tuple = ()
     tuned: dict | None = None
+
+
+def _names(value) -> tuple:
+    """A card name or a list of them, as a tuple (empty when absent)."""
+    if value is None:
+        return ()
+    return (value,) if isinstance(value, str) else tuple(value)
 
 
 def load_cards(folder: str) -> dict:
@@ -44,8 +52,8 @@ def load_cards(folder: str) -> dict:
                 overrides=list(raw["overrides"]),
                 metric=raw["metric"],
                 lengths={"full": raw["full"], "short": raw["short"]},
-                better_than=raw.get("better_than"),
-                worse_than=raw.get("worse_than"),
+                better_than=_names(raw.get("better_than")),
+                worse_than=_names(raw.get("worse_than")),
                 tuned=raw.get("tuned"),
             )
     return cards
@@ -69,11 +77,13 @@ def verdicts(cards: dict, measured: dict, length: str = "short") -> dict:
         card = cards[name]
         low, high = card.lengths[length]["band"]
         ok, reason = low <= value <= high, f"band [{low}, {high}]"
-        if card.better_than and card.better_than in measured:
-            ok = ok and value < measured[card.better_than]
-            reason += f", below {card.better_than}"
-        if card.worse_than and card.worse_than in measured:
-            ok = ok and value > measured[card.worse_than]
-            reason += f", above {card.worse_than}"
+        for other in card.better_than:
+            if other in measured:
+                ok = ok and value < measured[other]
+                reason += f", below {other}"
+        for other in card.worse_than:
+            if other in measured:
+                ok = ok and value > measured[other]
+                reason += f", above {other}"
         out[name] = (ok, reason)
     return out

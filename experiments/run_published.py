@@ -31,10 +31,13 @@ def main() -> int:
         cards = {name: card for name, card in cards.items() if name in args.cards}
     measured = {name: measure(card, length) for name, card in cards.items()}
     results = verdicts(cards, measured, length)
-    print(f"{'card':<18}{'measured':>10}  {'expected':<40}{'verdict':<8}source")
+    name_width = max(len(name) for name in measured) + 2
+    reason_width = max(len(reason) for _, reason in results.values()) + 2
+    print(f"{'card':<{name_width}}{'measured':>10}  {'expected':<{reason_width}}{'verdict':<8}source")
     for name, card in cards.items():
         ok, reason = results[name]
-        print(f"{name:<18}{measured[name]:>10.3f}  {reason:<40}{'ok' if ok else 'MISS':<8}{card.source}")
+        print(f"{name:<{name_width}}{measured[name]:>10.3f}  {reason:<{reason_width}}{'ok' if ok else 'MISS':<8}"
+              f"{card.source}")
     return 0 if all(ok for ok, _ in results.values()) else 1
 
 

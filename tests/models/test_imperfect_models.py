@@ -116,7 +116,7 @@ def test_letkf_tracks_kuramoto_sivashinsky_far_below_the_observation_error():
 
 
 def test_every_demo_paired_study_composes_and_validates():
-    """The demo studies (experiments/model_error/, experiments/iterative/) stay runnable as the config
+    """The demo studies (experiments/model_error/, iterative/, hybrid/) stay runnable as the config
     schema evolves."""
     import glob
     import importlib.util
