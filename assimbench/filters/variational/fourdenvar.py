@@ -49,7 +49,6 @@ from assimbench.filters.kalman.inflation import (
     InflationConfig,
     check_inflation,
     inflation_pieces,
-    with_inflation,
 )
 from assimbench.filters.variational.hybrid import (
     HYBRID_TRACED,
@@ -59,9 +58,8 @@ from assimbench.filters.variational.hybrid import (
     hybrid_factor,
     hybrid_settings,
     init_window_ensemble,
-    make_perturbation_update,
+    make_member_update,
     push_anomalies,
-    recentred,
     slide_window,
 )
 from assimbench.integrators import make_model_flow
@@ -102,16 +100,8 @@ def make_4denvar(model, operator, climate_cov, members: int, window: int, radius
     windows, None: no localization."""
     climate_factor = jnp.asarray(np.linalg.cholesky(np.asarray(climate_cov)))
     flow = make_model_flow(model, steps_per_interval, ensemble=True)
-    perturbation_update = make_perturbation_update(model.size, operator, radius)
+    update_members = make_member_update(model.size, operator, radius, pieces)
     steps = 1 if operator.linear else iterations
-
-    def update(key, prior, y_and_mean, settings):
-        del key  # deterministic
-        y, mean = y_and_mean
-        error_var = settings["observation"]["error_std"] ** 2
-        return recentred(mean, perturbation_update(prior, y, error_var, settings["filter"])), {}
-
-    update_members = with_inflation(update, pieces)
 
     def init(key, initial_ensemble, settings):
         del key, settings
@@ -128,7 +118,7 @@ def make_4denvar(model, operator, climate_cov, members: int, window: int, radius
         v = gauss_newton_4denvar(backgrounds, factors, obs, mask, settings["observation"]["error_std"] ** 2,
                                  operator, steps)
         trajectory = backgrounds + factors @ v
-        analysed, info = update_members(key, state.members, (y, trajectory[filled - 1]), settings)
+        analysed, info = update_members(key, state.members, y, trajectory[filled - 1], settings)
         return WindowEnsembleState(members=analysed, start=start, shifted=trajectory[0], obs=obs, filled=filled,
                                    past=push_anomalies(state.past, analysed)), info
 

@@ -49,7 +49,6 @@ from assimbench.filters.kalman.inflation import (
     InflationConfig,
     check_inflation,
     inflation_pieces,
-    with_inflation,
 )
 from assimbench.filters.variational.hybrid import (
     HYBRID_TRACED,
@@ -59,9 +58,8 @@ from assimbench.filters.variational.hybrid import (
     hybrid_factor,
     hybrid_settings,
     init_window_ensemble,
-    make_perturbation_update,
+    make_member_update,
     push_anomalies,
-    recentred,
     slide_window,
 )
 from assimbench.integrators import make_model_flow
@@ -181,15 +179,7 @@ def make_hybrid_4dvar(model, operator, climate_cov, members: int, window: int, r
     radius (traced) and the inflation pieces."""
     advance = make_model_flow(model, steps_per_interval)
     climate_factor = jnp.asarray(np.linalg.cholesky(np.asarray(climate_cov)))
-    perturbation_update = make_perturbation_update(model.size, operator, radius)
-
-    def update(key, prior, y_and_mean, settings):
-        del key  # deterministic
-        y, mean = y_and_mean
-        error_var = settings["observation"]["error_std"] ** 2
-        return recentred(mean, perturbation_update(prior, y, error_var, settings["filter"])), {}
-
-    update_members = with_inflation(update, pieces)
+    update_members = make_member_update(model.size, operator, radius, pieces)
 
     def init(key, initial_ensemble, settings):
         del key, settings
@@ -203,7 +193,7 @@ def make_hybrid_4dvar(model, operator, climate_cov, members: int, window: int, r
                                root)
         analysis, shifted = analyse_window(start, factor, obs, mask, filled, settings, advance, operator, iterations,
                                            inner_iterations, window)
-        analysed, info = update_members(key, state.members, (y, analysis), settings)
+        analysed, info = update_members(key, state.members, y, analysis, settings)
         return WindowEnsembleState(members=analysed, start=start, shifted=shifted, obs=obs, filled=filled,
                                    past=push_anomalies(state.past, analysed)), info
 

@@ -30,7 +30,7 @@ import numpy as np
 
 from assimbench.config.spec import floats
 from assimbench.filters.kalman.etkf import etkf_analysis
-from assimbench.filters.kalman.inflation import INFLATION_KEYS
+from assimbench.filters.kalman.inflation import INFLATION_KEYS, with_inflation
 from assimbench.filters.kalman.letkf import letkf_analysis, local_windows
 from assimbench.localization import gaspari_cohn, radius_setting, ring_distance
 
@@ -93,6 +93,22 @@ def make_perturbation_update(size: int, operator, radius: float | None):
         return letkf_analysis(prior, operator(prior), y, error_var, index, weights, SOLVER)
 
     return update
+
+
+def make_member_update(size: int, operator, radius: float | None, pieces=frozenset()):
+    """``update(key, members, y, mean, settings)`` -> (analysis members, info): the inflation pieces
+    around the perturbation update of the forecast ``members`` (N, n), recentred on the variational
+    ``mean`` (n,)."""
+    perturbation_update = make_perturbation_update(size, operator, radius)
+
+    def update(key, prior, y_and_mean, settings):
+        del key  # deterministic
+        y, mean = y_and_mean
+        error_var = settings["observation"]["error_std"] ** 2
+        return recentred(mean, perturbation_update(prior, y, error_var, settings["filter"])), {}
+
+    inflated = with_inflation(update, pieces)
+    return lambda key, members, y, mean, settings: inflated(key, members, (y, mean), settings)
 
 
 def recentred(mean, members):
