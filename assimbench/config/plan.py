@@ -144,7 +144,7 @@ def _title(cfg, choice: Choice) -> str:
     truth = choice.truth
     shape = f"n={truth.size}" if truth.size == truth.resolved else f"n={truth.size}, {truth.resolved} resolved"
     forecast = "" if choice.forecast.name == "same" else f", forecast model {choice.forecast.name}"
-    members = f", {cfg.filter.members} members" if "members" in cfg.filter else ""
+    members = f", {cfg.filter.members} members" if int(cfg.filter.get("members", 1)) > 1 else ""
     reps = int(cfg.replicates)
     return (f"assimbench  {truth.name} ({shape}{forecast})  {choice.filter.name}{members}  "
             f"{reps} replicate{'s' if reps > 1 else ''} x {cfg.cycles} cycles (burn-in {cfg.burn_in})")

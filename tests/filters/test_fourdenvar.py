@@ -161,6 +161,7 @@ def test_on_the_demo_ring_4denvar_and_hybrid_4dvar_cycle_their_ensembles_in_lane
 
 @pytest.mark.parametrize("overrides, words", [
     (["filter=4dvar", "filter.ensemble_weight=0.5"], ["filter.ensemble_weight", "filter.members >= 2"]),
+    (["filter=4dvar", "filter.radius=4"], ["filter.radius", "needs an ensemble", "filter.members >= 2"]),
     (["filter=4denvar", "filter.window=0"], ["filter.window", ">= 1"]),
     (["filter=4denvar", "filter.ensemble_weight=1.5"], ["filter.ensemble_weight", "from 0 to 1"]),
     (["model=lorenz63", "filter=4denvar"], ["filter.radius", "null"]),

@@ -102,9 +102,10 @@ class ThreeDEnVarConfig(InflationConfig):
 
     name: str = "3denvar"
     members: int = 10
-    ensemble_weight: float = 0.5
-    static_scale: float = 0.1
-    radius: float | None = 4.0
+    inflation: float = 1.05
+    ensemble_weight: float = 0.8
+    static_scale: float = 0.005
+    radius: float | None = 6.0
     iterations: int = 3
 
 

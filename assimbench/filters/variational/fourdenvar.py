@@ -134,10 +134,11 @@ class FourDEnVarConfig(InflationConfig):
 
     name: str = "4denvar"
     members: int = 10
-    window: int = 3
-    ensemble_weight: float = 0.5
-    static_scale: float = 0.1
-    radius: float | None = 4.0
+    inflation: float = 1.01
+    window: int = 2
+    ensemble_weight: float = 0.8
+    static_scale: float = 0.005
+    radius: float | None = 6.0
     iterations: int = 3
 
 

@@ -223,9 +223,10 @@ def _check(c, model) -> None:
     c.integer("members", 1, "an integer >= 1 (1: pure 4D-Var; >= 2: hybrid with an ensemble)")
     check_hybrid_weights(c)
     if int(c.node.members) == 1:
-        if float(c.node.ensemble_weight) != 0.0:
-            c.fail("ensemble_weight", c.node.ensemble_weight,
-                   f"an ensemble weight needs an ensemble: set {c.name('members')} >= 2 (1 is the pure 4D-Var)")
+        for key in ("ensemble_weight", "radius"):
+            if c.node[key] not in (None, 0.0):
+                c.fail(key, c.node[key], f"the hybrid's {key.replace('_', ' ')} needs an ensemble: set "
+                                         f"{c.name('members')} >= 2 (1 is the pure 4D-Var)")
     else:
         check_inflation(c)
     check_radius(c, model)
