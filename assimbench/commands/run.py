@@ -125,6 +125,10 @@ def network_line(config: dict) -> str:
     size = model.get("size") or model.get("slow") or 3
     stride = int(net.get("stride", 1))
     seen = "every variable" if stride == 1 else (f"one variable in {stride} ({-(-int(size) // stride)} of {size})")
+    stations = net.get("stations")
+    if stations is not None:
+        between = sum(1 for q in stations if q != int(q))
+        seen = f"{len(stations)} stations" + (f" ({between} between grid points)" if between else "")
     transform = net.get("transform", "identity")
     how = "" if transform == "identity" else f", {transform} of the state"
     return f"{seen}{how} every {net.get('interval'):g} time units, error std {net.get('error_std'):g}"

@@ -146,7 +146,7 @@ def _section_checks(choice: Choice, cat: Catalogue) -> dict:
         "forecast_model": lambda node: (choice.forecast.check(NodeChecks(node, "forecast_model"), choice.truth)
                                         if choice.forecast.name in cat.derived
                                         else choice.forecast.check(NodeChecks(node, "forecast_model"))),
-        "observation": lambda node: cat.network.check(NodeChecks(node, "observation"), choice.truth.resolved),
+        "observation": lambda node: cat.network.check(NodeChecks(node, "observation"), choice.truth),
         "filter": lambda node: choice.filter.check(NodeChecks(node, "filter"), choice.forecaster),
         "": lambda node: NodeChecks(node, "").real("initial_spread", "a finite standard deviation >= 0",
                                                    minimum=0.0, strict=False),
@@ -201,7 +201,7 @@ def check(cfg: DictConfig) -> Choice:
                             "filter": filter_spec})
     interval = NodeChecks(cfg.observation, "observation").real("interval", "a finite model time > 0", minimum=0.0)
     _check_interval(interval, float(cfg.model.dt), "model.dt")
-    cat.network.check(NodeChecks(cfg.observation, "observation"), truth.resolved)
+    cat.network.check(NodeChecks(cfg.observation, "observation"), truth)
     forecaster = _forecaster(cfg, cat, forecast, truth, interval)
     filter_spec.check(NodeChecks(cfg.filter, "filter"), forecaster)
     _check_run(cfg)

@@ -79,7 +79,7 @@ class DerivedModelSpec:
 @dataclass(frozen=True)
 class NetworkSpec:
     """An observation network: build(node, resolved_size) -> ObservationOperator;
-    check(c, resolved_size); traced: its swept floats (lane keys)."""
+    check(c, truth: ModelFacts); traced: its swept floats (lane keys)."""
 
     name: str
     schema: type

@@ -1,16 +1,18 @@
 """Observation networks: which variables are observed, how often, through what and with what error.
 
-Today one network family: every ``stride``-th resolved variable, every
-``interval`` model time units, through an elementwise ``transform``, with
-independent errors of standard deviation ``error_std`` (R = error_std^2 I,
-a traced setting). The group's options (``every_station``,
-``every_other_station``) are presets of this one spec.
+Every ``stride``-th resolved variable, or ``stations`` at any grid positions
+(linear interpolation between grid points), every ``interval`` model time
+units, through an elementwise ``transform``, with independent errors of
+standard deviation ``error_std`` (R = error_std^2 I, a traced setting). The
+group's options (``every_station``, ``every_other_station``) are presets of
+this one spec.
 """
 
+import math
 from dataclasses import dataclass
 
 from assimbench.config.spec import NetworkSpec, NodeChecks
-from assimbench.observations.operators import TRANSFORMS, every_kth
+from assimbench.observations.operators import TRANSFORMS, at_stations, every_kth
 
 
 @dataclass
@@ -20,27 +22,58 @@ class ObservationConfig:
     y = f(H truth) + N(0, error_std^2 I) with f given by ``transform``
     (identity, absolute or square); ``interval`` must be a whole multiple of
     ``model.dt``. The default is the demo's: every station of the ring every
-    six hours (0.05 model time units) with unit error.
+    six hours (0.05 model time units) with unit error. ``stations``, a list of
+    grid positions in [0, n) (fractions between grid points on a ring), replaces
+    the stride.
     """
 
     interval: float = 0.05
     stride: int = 1
+    stations: list[float] | None = None
     error_std: float = 1.0
     transform: str = "identity"
 
 
-def _check(c: NodeChecks, resolved: int) -> None:
+def _check(c: NodeChecks, truth) -> None:
+    """Ranges of the network's keys; ``truth`` the facts of the truth model (ModelFacts)."""
+    resolved = truth.resolved
     allowed = f"an integer from 1 to the observable state size {resolved}"
     c.integer("stride", 1, allowed, maximum=resolved)
     c.real("error_std", "a finite standard deviation > 0", minimum=0.0)
     if c.node.transform not in TRANSFORMS:
         c.fail("transform", c.node.transform, "one of " + ", ".join(TRANSFORMS))
+    if c.node.stations is not None:
+        _check_stations(c, truth)
+
+
+def _check_stations(c: NodeChecks, truth) -> None:
+    stations = list(c.node.stations)
+    shown = "[" + ",".join(f"{q:g}" for q in stations) + "]"
+    if int(c.node.stride) != 1:
+        c.fail("stride", c.node.stride, f"1 when {c.name('stations')} is given (a station list replaces the stride)")
+    if not stations:
+        c.fail("stations", shown, "a list of at least one grid position")
+    within = f"grid positions from 0 to below the observable state size {truth.resolved}"
+    for q in stations:
+        if not math.isfinite(q) or q < 0 or q >= truth.resolved:
+            c.fail("stations", shown, f"{within}; {q:g} is not")
+        if q != int(q) and not truth.ring:
+            c.fail("stations", shown, f"whole grid positions: {truth.name} has no distance between variables, so "
+                                      f"{q:g} cannot lie between two")
+    if len(set(stations)) != len(stations):
+        c.fail("stations", shown, "each position once (a repeated station would share its noise)")
+
+
+def _build(node, resolved: int):
+    if node.stations is None:
+        return every_kth(resolved, int(node.stride), str(node.transform))
+    return at_stations(resolved, list(node.stations), str(node.transform))
 
 
 SPEC = NetworkSpec(
     name="stride",
     schema=ObservationConfig,
-    build=lambda node, resolved: every_kth(resolved, int(node.stride), str(node.transform)),
+    build=_build,
     check=_check,
     traced=("error_std",),
 )

@@ -1,4 +1,5 @@
-"""Observation operators ``h(x) -> y`` with a known output size.
+"""Observation operators ``h(x) -> y`` with a known output size: every ``stride``-th variable, or
+stations anywhere on the grid (linear interpolation between grid points).
 
 The noise level is not part of the operator: it is the dynamic parameter
 ``observation.error_std`` (R = error_std**2 I), so one compiled program serves
@@ -20,11 +21,16 @@ TRANSFORMS = {
 
 
 class ObservationOperator(NamedTuple):
-    """Observe every ``stride``-th variable, starting with variable 0, through ``transform``.
+    """Observe the state at the stations' positions through ``transform``.
 
-    indices: (p,) observed variable indices (static, NumPy); positions: (p,)
-    grid positions of the observations, in grid units, for localization;
-    transform: a key of TRANSFORMS applied elementwise after the selection;
+    indices: (p,) the grid point at or just below each station (the
+    observed variable itself for a station on a grid point); positions: (p,)
+    grid positions of the stations, in grid units, for localization and
+    interpolation; stride: a station every ``stride``-th variable from 0
+    (observed by a strided slice), or 0 for a list of stations; fractions:
+    (p,) where a station sits between its grid point and the next one on the
+    ring (0 on a grid point; None for a stride network); transform: a key of
+    TRANSFORMS applied elementwise after the selection or interpolation;
     limit: only the first ``limit`` variables are observable (a two-scale
     model's slow variables come first; None: all).
     """
@@ -34,6 +40,7 @@ class ObservationOperator(NamedTuple):
     stride: int
     transform: str = "identity"
     limit: int | None = None
+    fractions: np.ndarray | None = None
 
     @property
     def size(self) -> int:
@@ -44,18 +51,32 @@ class ObservationOperator(NamedTuple):
         return self.transform == "identity"
 
     def standard_noise(self, key: jax.Array, state_size: int) -> jax.Array:
-        """N(0, I) noise of the observed stations, (p,).
+        """N(0, I) noise of the stations, (p,).
 
         One draw per grid point, then the observed ones are taken: a station
         gets the same noise whichever other stations are observed, so two
-        networks compared on the same seed differ only where they differ.
+        networks compared on the same seed differ only where they differ. A
+        station between grid points gets its own draw (a second stream, one
+        draw per station of the list).
         """
-        return jax.random.normal(key, (state_size,))[self.indices]
+        on_grid = jax.random.normal(key, (state_size,))[self.indices]
+        if self.fractions is None or not np.any(self.fractions):
+            return on_grid
+        between = jax.random.normal(jax.random.fold_in(key, 1), (self.size,))
+        return jnp.where(jnp.asarray(self.fractions == 0.0), on_grid, between)
 
     def __call__(self, x: jax.Array) -> jax.Array:
-        """y = f(H x) for a selection H and elementwise f; x: (..., n) -> (..., p)."""
-        # A strided slice, not a gather: XLA fuses it into its neighbours.
-        return TRANSFORMS[self.transform](x[..., : self.limit : self.stride])
+        """y = f(H x), H a selection or a linear interpolation between the two grid points around
+        each station, f elementwise; x: (..., n) -> (..., p)."""
+        if self.fractions is None:
+            # A strided slice, not a gather: XLA fuses it into its neighbours.
+            return TRANSFORMS[self.transform](x[..., : self.limit : self.stride])
+        at_left = x[..., self.indices]
+        if not np.any(self.fractions):
+            return TRANSFORMS[self.transform](at_left)
+        # (1 - a) x_i + a x_(i+1): exactly x_i for a station on a grid point.
+        at_right = x[..., (self.indices + 1) % (self.limit or x.shape[-1])]
+        return TRANSFORMS[self.transform]((1.0 - self.fractions) * at_left + self.fractions * at_right)
 
 
 def every_kth(state_size: int, stride: int, transform: str = "identity") -> ObservationOperator:
@@ -70,3 +91,16 @@ def every_kth(state_size: int, stride: int, transform: str = "identity") -> Obse
         indices=indices, positions=indices.astype(np.float64), stride=int(stride), transform=transform,
         limit=int(state_size),
     )
+
+
+def at_stations(state_size: int, positions, transform: str = "identity") -> ObservationOperator:
+    """Observe the given grid positions (floats in [0, state_size)), each by linear interpolation
+    between grid points floor(q) and floor(q) + 1 (the ring's first point after its last)."""
+    positions = np.asarray(positions, dtype=np.float64)
+    if positions.ndim != 1 or positions.size == 0 or np.any(positions < 0) or np.any(positions >= state_size):
+        raise ValueError(f"positions must be a non-empty list in [0, {state_size}), got {positions}")
+    if transform not in TRANSFORMS:
+        raise ValueError(f"transform must be one of {sorted(TRANSFORMS)}, got {transform!r}")
+    indices = np.floor(positions).astype(np.int64)
+    return ObservationOperator(indices=indices, positions=positions, stride=0, transform=transform,
+                               limit=int(state_size), fractions=positions - indices)

@@ -29,7 +29,7 @@ def layouts_of(setup: TwinSetup) -> tuple:
     layouts.update({name: FIELD_LAYOUTS[name] for name in setup.fields})
     coordinates = {
         "variable": np.arange(setup.model.resolved_size),
-        "station": setup.operator.indices,
+        "station": setup.operator.positions,
         "member": np.arange(members),
         "rank": np.arange(members + 1),
         "lag": np.arange(1, setup.smoother_lag + 1),

@@ -39,6 +39,7 @@ BAD_INPUT = [
     (["filter.inflation=0.9"], ["filter.inflation=0.9", ">= 1"]),
     (["observation.error_std=0"], ["observation.error_std", "> 0"]),
     (["observation.error_std=-1"], ["observation.error_std", "> 0"]),
+    (["observation.stations=[0,2.5,41]"], ["observation.stations", "41 is not"]),
     (["observation.interval=0.055"], ["observation.interval", "multiple", "model.dt"]),
     (["observation.interval=0"], ["observation.interval", "> 0"]),
     (["burn_in=3000"], ["burn_in=3000", "cycles - 1"]),
