@@ -143,7 +143,10 @@ def reference_lines(summary: dict, config: dict, climate: float) -> list:
                                                                           "(RMSE of the climatological mean)"]
     lines = ["  references          " + ", ".join(levels)]
     rmse = summary.get("rmse_analysis")
-    if rmse is None or not np.isfinite(rmse):
+    if rmse is None:
+        return lines
+    if not np.isfinite(rmse):
+        lines.append("  analysis RMSE is    not finite (a replicate diverged): no verdict against the references")
         return lines
     parts = []
     if identity:

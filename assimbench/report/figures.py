@@ -140,7 +140,8 @@ def errors_over_cycles(points: list, path: str, window: int = 20) -> str:
             colour = palette[point.name]
             for replicate in smooth:
                 ax.plot(time, replicate, color=colour, lw=0.5, alpha=0.3)
-            ax.plot(time, smooth.mean(axis=0), color=colour, lw=1.6, label=f"RMSE, mean of {len(smooth)} replicates")
+            label = f"RMSE, mean of {len(smooth)} replicates" if len(smooth) > 1 else "RMSE"
+            ax.plot(time, smooth.mean(axis=0), color=colour, lw=1.6, label=label)
             ax.plot(time, running_mean(spread.mean(axis=0), window), color="black", lw=1.0, ls="--",
                     label="spread, mean")
             _observation_error(ax, best)

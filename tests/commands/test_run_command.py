@@ -253,6 +253,13 @@ def test_the_printed_summary_places_the_analysis_error_against_its_reference_lev
     assert lines[1].endswith(f"{rmse:.2f} x the observation error, {rmse / 3.6:.2f} x climatology: {verdict}")
 
 
+def test_a_diverged_run_says_why_it_has_no_verdict():
+    from assimbench.commands.run import reference_lines
+
+    lines = reference_lines({"rmse_analysis": float("nan")}, {"observation": {"error_std": 1.0}}, 3.6)
+    assert len(lines) == 2 and "diverged" in lines[1] and "no verdict" in lines[1]
+
+
 RING_STUDY = """\
 defaults:
   - config
