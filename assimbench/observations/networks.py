@@ -50,7 +50,8 @@ def _check_stations(c: NodeChecks, truth) -> None:
     stations = list(c.node.stations)
     shown = "[" + ",".join(f"{q:g}" for q in stations) + "]"
     if int(c.node.stride) != 1:
-        c.fail("stride", c.node.stride, f"1 when {c.name('stations')} is given (a station list replaces the stride)")
+        c.fail("stride", c.node.stride, f"1 when {c.name('stations')} is given (a station list replaces the stride; "
+                                             "leave out stride presets such as observation=every_other_station)")
     if not stations:
         c.fail("stations", shown, "a list of at least one grid position")
     within = f"grid positions from 0 to below the observable state size {truth.resolved}"
@@ -59,7 +60,7 @@ def _check_stations(c: NodeChecks, truth) -> None:
             c.fail("stations", shown, f"{within}; {q:g} is not")
         if q != int(q) and not truth.ring:
             c.fail("stations", shown, f"whole grid positions: {truth.name} has no distance between variables, so "
-                                      f"{q:g} cannot lie between two")
+                                      f"{q:g} cannot lie between two grid points")
     if len(set(stations)) != len(stations):
         c.fail("stations", shown, "each position once (a repeated station would share its noise)")
 
