@@ -131,15 +131,21 @@ def network_line(config: dict) -> str:
         seen = f"{len(stations)} stations" + (f" ({between} between grid points)" if between else "")
     transform = net.get("transform", "identity")
     how = "" if transform == "identity" else f", {transform} of the state"
-    return f"{seen}{how} every {net.get('interval'):g} time units, error std {net.get('error_std'):g}"
+    factors = net.get("error_factors")
+    scaled = "" if factors is None else f" x per-station factors {min(factors):g} to {max(factors):g}"
+    return f"{seen}{how} every {net.get('interval'):g} time units, error std {net.get('error_std'):g}{scaled}"
 
 
 def reference_lines(summary: dict, config: dict, climate: float) -> list:
     """The reference levels beside the filter's numbers: the observation error and climatology, and
     where the analysis stands against them."""
     error = float(config.get("observation", {}).get("error_std", np.nan))
+    factors = config.get("observation", {}).get("error_factors")
+    if factors is not None:  # unequal errors: their root mean square over the stations
+        error *= float(np.sqrt(np.mean(np.square(factors))))
     identity = config.get("observation", {}).get("transform", "identity") == "identity"
-    levels = ([f"observation error {error:.4f}"] if identity else []) + [f"climatology {climate:.4f} "
+    rms = " (RMS over the stations)" if factors is not None else ""
+    levels = ([f"observation error {error:.4f}{rms}"] if identity else []) + [f"climatology {climate:.4f} "
                                                                           "(RMSE of the climatological mean)"]
     lines = ["  references          " + ", ".join(levels)]
     rmse = summary.get("rmse_analysis")

@@ -11,6 +11,8 @@ this one spec.
 import math
 from dataclasses import dataclass
 
+import numpy as np
+
 from assimbench.config.spec import NetworkSpec, NodeChecks
 from assimbench.observations.operators import TRANSFORMS, at_stations, every_kth
 
@@ -24,12 +26,14 @@ class ObservationConfig:
     ``model.dt``. The default is the demo's: every station of the ring every
     six hours (0.05 model time units) with unit error. ``stations``, a list of
     grid positions in [0, n) (fractions between grid points on a ring), replaces
-    the stride.
+    the stride. ``error_factors``, one per station, make the errors unequal:
+    station i's standard deviation is error_std x error_factors[i].
     """
 
     interval: float = 0.05
     stride: int = 1
     stations: list[float] | None = None
+    error_factors: list[float] | None = None
     error_std: float = 1.0
     transform: str = "identity"
 
@@ -44,6 +48,19 @@ def _check(c: NodeChecks, truth) -> None:
         c.fail("transform", c.node.transform, "one of " + ", ".join(TRANSFORMS))
     if c.node.stations is not None:
         _check_stations(c, truth)
+    if c.node.error_factors is not None:
+        _check_error_factors(c, truth)
+
+
+def _check_error_factors(c: NodeChecks, truth) -> None:
+    factors = list(c.node.error_factors)
+    shown = "[" + ",".join(f"{f:g}" for f in factors) + "]"
+    count = len(c.node.stations) if c.node.stations is not None else -(-truth.resolved // int(c.node.stride))
+    if len(factors) != count:
+        c.fail("error_factors", shown, f"one factor per station: {count} here, got {len(factors)}")
+    for f in factors:
+        if not math.isfinite(f) or f <= 0:
+            c.fail("error_factors", shown, f"finite factors > 0 (each station's error std over {c.name('error_std')})")
 
 
 def _check_stations(c: NodeChecks, truth) -> None:
@@ -67,8 +84,12 @@ def _check_stations(c: NodeChecks, truth) -> None:
 
 def _build(node, resolved: int):
     if node.stations is None:
-        return every_kth(resolved, int(node.stride), str(node.transform))
-    return at_stations(resolved, list(node.stations), str(node.transform))
+        operator = every_kth(resolved, int(node.stride), str(node.transform))
+    else:
+        operator = at_stations(resolved, list(node.stations), str(node.transform))
+    if node.error_factors is None:
+        return operator
+    return operator._replace(error_factors=np.asarray(list(node.error_factors), dtype=np.float64))
 
 
 SPEC = NetworkSpec(

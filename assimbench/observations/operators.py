@@ -29,7 +29,9 @@ class ObservationOperator(NamedTuple):
     interpolation; stride: a station every ``stride``-th variable from 0
     (observed by a strided slice), or 0 for a list of stations; fractions:
     (p,) where a station sits between its grid point and the next one on the
-    ring (0 on a grid point; None for a stride network); transform: a key of
+    ring (0 on a grid point; None for a stride network); error_factors: (p,)
+    each station's error standard deviation in units of ``error_std``, so
+    R = error_std^2 diag(error_factors^2) (None: all 1); transform: a key of
     TRANSFORMS applied elementwise after the selection or interpolation;
     limit: only the first ``limit`` variables are observable (a two-scale
     model's slow variables come first; None: all).
@@ -41,6 +43,16 @@ class ObservationOperator(NamedTuple):
     transform: str = "identity"
     limit: int | None = None
     fractions: np.ndarray | None = None
+    error_factors: np.ndarray | None = None
+
+    def error_std_of(self, error_std):
+        """The stations' error standard deviations: ``error_std`` (the traced network-wide value),
+        times each station's factor when the network gives factors ((p,); else the scalar itself)."""
+        return error_std if self.error_factors is None else error_std * jnp.asarray(self.error_factors)
+
+    def error_variance(self, error_std):
+        """R's diagonal, error_std_of(error_std)^2: a scalar, or (p,) with per-station factors."""
+        return self.error_std_of(error_std) ** 2
 
     @property
     def size(self) -> int:

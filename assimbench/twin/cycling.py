@@ -162,7 +162,7 @@ def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycl
             if truth_noise:
                 x = x + settings["truth_noise_std"] * jax.random.normal(jax.random.fold_in(noise_key, k), x.shape)
             noise = operator.standard_noise(jax.random.fold_in(obs_key, k), resolved)
-            return x, (x[:resolved], operator(x) + settings["observation"]["error_std"] * noise)
+            return x, (x[:resolved], operator(x) + operator.error_std_of(settings["observation"]["error_std"]) * noise)
 
         truth_end, (truths, ys) = jax.lax.scan(step, truth, first_cycle + jnp.arange(length))
         return truth_end, truths, ys

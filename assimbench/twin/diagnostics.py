@@ -214,7 +214,7 @@ def make_cycle_diagnostics(groups, operator, weighted: bool):
             for when, state in (("forecast", forecast), ("analysis", analysis)):
                 weights = normalised_weights(state) if weighted else None
                 out[f"crps_{when}"], out[f"crps_fair_{when}"] = ensemble_crps(state.members, weights, truth)
-        error_std = settings["observation"]["error_std"]
+        error_std = operator.error_std_of(settings["observation"]["error_std"])
         if "rank_histogram" in groups:
             out["rank_truth_forecast"] = rank_counts(forecast.members, truth)
             noisy = operator(forecast.members) + error_std * rank_noise
@@ -227,7 +227,7 @@ def make_cycle_diagnostics(groups, operator, weighted: bool):
         if "innovation" in groups:
             variance = w_f @ (obs_f - w_f @ obs_f) ** 2 / (1.0 - jnp.sum(w_f**2))
             out["innovation_mean"] = jnp.mean(d_ob)
-            out["innovation_ratio"] = jnp.mean(d_ob**2) / (jnp.mean(variance) + error_std**2)
+            out["innovation_ratio"] = jnp.mean(d_ob**2) / (jnp.mean(variance) + jnp.mean(error_std**2))
         if "desroziers" in groups:
             d_oa = y - normalised_weights(analysis) @ operator(analysis.members)
             out["desroziers_r"] = jnp.mean(d_oa * d_ob)

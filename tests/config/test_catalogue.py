@@ -68,14 +68,17 @@ def _kalman(mean, cov, h, r, y):
     return mean + gain @ (y - h @ mean), (np.eye(mean.size) - gain @ h) @ cov
 
 
+@pytest.mark.parametrize("factors", [None, [1.0, 2.0, 0.5, 1.5]])
 @pytest.mark.parametrize("name", sorted(n for n, s in catalogue().filters.items() if s.kalman_exact))
-def test_filters_that_declare_it_equal_the_kalman_filter_on_a_linear_gaussian_problem(name):
+def test_filters_that_declare_it_equal_the_kalman_filter_on_a_linear_gaussian_problem(name, factors):
     """One analysis with no inflation and no localization, from an ensemble of 30 members of an 8-variable
     state, observed at every other variable with error 0.5: the analysis mean and covariance equal
     the Kalman filter's from the ensemble's sample mean and covariance (Evensen 2003, Ocean Dyn. 53;
-    Hunt et al. 2007, Physica D 230, Sec. 2)."""
+    Hunt et al. 2007, Physica D 230, Sec. 2); with per-station factors, R = 0.25 diag(factors^2)."""
     overrides = ["model.size=8", "observation.stride=2", "observation.error_std=0.5", f"filter={name}",
                  "filter.members=30", "filter.inflation=1.0"]
+    if factors is not None:
+        overrides.append("observation.error_factors=[" + ",".join(map(str, factors)) + "]")
     if "radius" in compose_config([f"filter={name}"], validate=False).filter:
         overrides.append("filter.radius=null")
     plan = resolve(compose_config(overrides))
@@ -88,7 +91,8 @@ def test_filters_that_declare_it_equal_the_kalman_filter_on_a_linear_gaussian_pr
     analysed, _ = filt.analyse(key, state, jax.numpy.asarray(y), settings)
     members = np.asarray(analysed.members)
     h = np.eye(8)[operator.indices]
-    mean, cov = _kalman(ensemble.mean(axis=0), np.cov(ensemble, rowvar=False), h, 0.25 * np.eye(operator.size), y)
+    r = 0.25 * np.diag(np.square(factors if factors is not None else np.ones(operator.size)))
+    mean, cov = _kalman(ensemble.mean(axis=0), np.cov(ensemble, rowvar=False), h, r, y)
     np.testing.assert_allclose(members.mean(axis=0), mean, rtol=1e-10, atol=1e-10)
     np.testing.assert_allclose(np.cov(members, rowvar=False), cov, rtol=1e-9, atol=1e-10)
 

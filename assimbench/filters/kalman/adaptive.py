@@ -57,7 +57,7 @@ def update_inflation(rho_b, obs_members, y, error_var, prior_variance, local=Non
     """(rho_a before clipping) from the prior ``rho_b`` and this cycle's innovations (equations above).
 
     obs_members (N, p) uninflated forecast members in observation space; y (p,);
-    error_var the scalar r; prior_variance v_b. Global form: rho_b scalar,
+    error_var the scalar r (or one per station, whose sum replaces p r); prior_variance v_b. Global form: rho_b scalar,
     ``local`` None. Local form: rho_b (n,) and ``local`` = (index, weight),
     each (n, K): the stations each grid point sees and their localization
     weights (0 for padding), as the LETKF's observation windows.
@@ -71,7 +71,10 @@ def update_inflation(rho_b, obs_members, y, error_var, prior_variance, local=Non
         index, weight = local
         count = weight.sum(axis=1)
         signal, departure = jnp.sum(weight * variance[index], axis=1), jnp.sum(weight * (d * d)[index], axis=1)
-    noise = count * error_var
+    if jnp.ndim(error_var) == 0:
+        noise = count * error_var
+    else:  # one variance per station: their sum over the stations seen
+        noise = jnp.sum(error_var) if local is None else jnp.sum(weight * error_var[index], axis=1)
     rho_o = (departure - noise) / signal
     v_o = 2.0 / count * ((rho_b * signal + noise) / signal) ** 2
     return (v_o * rho_b + prior_variance * rho_o) / (v_o + prior_variance)
@@ -95,7 +98,7 @@ def adaptive_ensemble_filter(name: str, members: int, update, operator, pieces=f
     def adapted(state, y, settings):
         """(rho_a, the settings with its anomaly factor in place of filter.inflation)."""
         f = settings["filter"]
-        error_var = settings["observation"]["error_std"] ** 2
+        error_var = operator.error_variance(settings["observation"]["error_std"])
         local = None if local_windows is None else local_windows(settings)
         rho = update_inflation(state.rho, operator(state.members), y, error_var, f["adaptive_std"] ** 2, local)
         rho = jnp.clip(rho, f["adaptive_min"] ** 2, f["adaptive_max"] ** 2)

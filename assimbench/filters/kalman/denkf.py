@@ -53,7 +53,7 @@ def make_denkf(operator, members: int, pieces=frozenset(), solver: str = "eigh")
 
     def update(key, prior, y, settings):
         del key  # deterministic
-        error_var = settings["observation"]["error_std"] ** 2
+        error_var = operator.error_variance(settings["observation"]["error_std"])
         return denkf_analysis(prior, operator(prior), y, error_var, solver), {}
 
     return ensemble_filter("denkf", members, update, pieces)

@@ -54,7 +54,7 @@ def make_enkf(operator, members: int, centre_perturbations: bool, pieces=frozens
     mean so the analysis mean is the Kalman update of the forecast mean (static choice)."""
 
     def update(key, prior, y, settings):
-        error_std = settings["observation"]["error_std"]
+        error_std = operator.error_std_of(settings["observation"]["error_std"])
         perturbations = jax.random.normal(key, (members, operator.size))
         if centre_perturbations:
             perturbations = perturbations - perturbations.mean(axis=0)

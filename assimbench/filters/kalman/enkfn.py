@@ -99,7 +99,7 @@ def make_enkfn(operator, members: int, pieces=frozenset(), extra_count: int = 1)
 
     def update(key, prior, y, settings):
         del key
-        error_var = settings["observation"]["error_std"] ** 2
+        error_var = operator.error_variance(settings["observation"]["error_std"])
         posterior, zeta = enkfn_analysis(prior, operator(prior), y, error_var, extra_count)
         return posterior, {"inflation": jnp.sqrt((members - 1.0) / zeta)}
 

@@ -21,7 +21,8 @@ from assimbench.localization import gaspari_cohn, radius_of, radius_setting, rin
 
 
 def ensrf_analysis(members, obs_members, y, error_var, taper):
-    """Serial EnSRF analysis; members (N, n), obs_members (N, p), y (p,).
+    """Serial EnSRF analysis; members (N, n), obs_members (N, p), y (p,), error_var r scalar or (p,)
+    (R diagonal: one station at a time).
 
     taper (p, n + p): localization weight of observation j on every
     component of the augmented state [x, h(x)]. For observation j with
@@ -35,7 +36,7 @@ def ensrf_analysis(members, obs_members, y, error_var, taper):
     state = jnp.concatenate([members, obs_members], axis=1)
 
     def assimilate(augmented, inputs):
-        j, value, weights = inputs
+        j, value, weights, error_var = inputs
         mean = augmented.mean(axis=0)
         anomalies = augmented - mean
         predicted = anomalies[:, size + j]
@@ -46,7 +47,7 @@ def ensrf_analysis(members, obs_members, y, error_var, taper):
         anomalies = anomalies - alpha * predicted[:, None] * gain[None, :]
         return mean + anomalies, None
 
-    steps = (jnp.arange(y.shape[0]), y, taper)
+    steps = (jnp.arange(y.shape[0]), y, taper, jnp.broadcast_to(error_var, y.shape))
     state, _ = jax.lax.scan(assimilate, state, steps)
     return state[:, :size]
 
@@ -59,7 +60,7 @@ def make_ensrf(model, operator, members: int, radius: float | None, pieces=froze
 
     def update(key, prior, y, settings):
         del key
-        error_var = settings["observation"]["error_std"] ** 2
+        error_var = operator.error_variance(settings["observation"]["error_std"])
         if radius is None:
             taper = jnp.ones(distance.shape)
         else:

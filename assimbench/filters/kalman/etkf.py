@@ -56,7 +56,7 @@ def make_etkf(operator, members: int, pieces=frozenset(), adaptive: bool = False
 
     def update(key, prior, y, settings):
         del key  # deterministic square-root filter
-        error_var = settings["observation"]["error_std"] ** 2
+        error_var = operator.error_variance(settings["observation"]["error_std"])
         return etkf_analysis(prior, operator(prior), y, error_var, solver), {}
 
     if adaptive:

@@ -232,7 +232,7 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
         obs, weights = window_obs
         f = settings["filter"]
         analysed, iterations, zeta = window_search(
-            start, obs, weights, settings["observation"]["error_std"] ** 2, advance, operator,
+            start, obs, weights, operator.error_variance(settings["observation"]["error_std"]), advance, operator,
             settings["forecast_model"], max_iterations, f["tolerance"], variant, f["bundle_scale"], solver,
             prior_count)
         return analysed, (iterations, zeta)

@@ -51,7 +51,7 @@ def local_windows(state_size: int, positions: np.ndarray, window_radius: float |
 def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight, solver: str = "eigh"):
     """LETKF analysis of ``members`` (N, n) with local observation weights.
 
-    obs_members (N, p); y (p,); error_var scalar; local_index (n, K) which
+    obs_members (N, p); y (p,); error_var scalar or (p,); local_index (n, K) which
     observations grid point g sees; local_weight (n, K) their localization
     weights rho in [0, 1] (0 for padding). At grid point g, with local
     anomalies Y_g (N, K) and R_g^-1 = diag(rho_g) / error_var:
@@ -95,7 +95,9 @@ def local_systems(space, y, error_var, local_index, local_weight):
     observation-space part of ``space`` (:func:`letkf_analysis`)."""
     n_members = space.obs_anomalies.shape[0]
     local_y = jnp.moveaxis(space.obs_anomalies[:, local_index], 1, 0)  # (n, N, K)
-    scaled = local_y * (local_weight / error_var)[:, None, :]
+    # R diagonal: a scalar variance, or one per station, taken for each grid point's window.
+    local_var = error_var if jnp.ndim(error_var) == 0 else error_var[local_index]
+    scaled = local_y * (local_weight / local_var)[:, None, :]
     precision = (n_members - 1) * jnp.eye(n_members) + jnp.einsum("gik,gjk->gij", scaled, local_y)
     return precision, jnp.einsum("gik,gk->gi", scaled, (y - space.obs_mean)[local_index])
 
@@ -131,7 +133,7 @@ def make_letkf(model, operator, members: int, radius: float | None, pieces=froze
 
     def update(key, prior, y, settings):
         del key
-        error_var = settings["observation"]["error_std"] ** 2
+        error_var = operator.error_variance(settings["observation"]["error_std"])
         return letkf_analysis(prior, operator(prior), y, error_var, index, local_weight(settings), solver), {}
 
     if adaptive:  # one factor per grid point, from the observations it sees (assimbench/filters/adaptive.py)

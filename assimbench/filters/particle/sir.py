@@ -59,9 +59,13 @@ def make_sir(operator, members: int) -> Filter:
         return ParticleState(initial_ensemble, jnp.full(members, -np.log(members), dtype=jnp.float64))
 
     def analyse(key, state, y, settings):
-        error_var = settings["observation"]["error_std"] ** 2
+        error_var = operator.error_variance(settings["observation"]["error_std"])
         departures = y - operator(state.members)
-        log_weights = state.log_weights - 0.5 * jnp.sum(departures**2, axis=1) / error_var
+        if jnp.ndim(error_var) == 0:
+            misfit = jnp.sum(departures**2, axis=1) / error_var
+        else:  # R diagonal with one variance per station
+            misfit = jnp.sum(departures**2 / error_var, axis=1)
+        log_weights = state.log_weights - 0.5 * misfit
         log_weights = log_weights - logsumexp(log_weights)
         ess = effective_sample_size(log_weights)
         resample_key, jitter_key = jax.random.split(key)

@@ -85,7 +85,7 @@ def make_3denvar(model, operator, climate_cov, members: int, radius: float | Non
     def update(key, prior, y, settings):
         del key  # deterministic
         f = settings["filter"]
-        error_var = settings["observation"]["error_std"] ** 2
+        error_var = operator.error_variance(settings["observation"]["error_std"])
         taper = 1.0 if radius is None else gaspari_cohn(grid_distance / f["radius"])
         b_cov = hybrid_covariance(prior, climate_cov, f["ensemble_weight"], f["static_scale"], taper)
         mean = gauss_newton_3dvar(prior.mean(axis=0), y, b_cov, error_var, operator, steps)[-1]

@@ -77,7 +77,8 @@ def gauss_newton_4denvar(backgrounds, factors, obs, mask, error_var, h, iteratio
         jacobians = jax.vmap(jax.jacfwd(h))(states)  # (W, p, n)
         rows = (mask[:, None, None] * (jacobians @ factors)).reshape(length * size, -1)
         departures = (mask[:, None] * (obs - jax.vmap(h)(states))).reshape(-1) + rows @ v
-        innovation_cov = rows @ rows.T + error_var * jnp.eye(length * size)
+        variances = jnp.broadcast_to(error_var, (length, size)).reshape(-1)
+        innovation_cov = rows @ rows.T + jnp.diag(variances)
         return rows.T @ jnp.linalg.solve(innovation_cov, departures), None
 
     v, _ = jax.lax.scan(step, jnp.zeros(factors.shape[-1]), None, length=iterations)
@@ -115,7 +116,7 @@ def make_4denvar(model, operator, climate_cov, members: int, window: int, radius
         root = None if radius is None else circulant_taper_root(model.size, f["radius"])
         factors = jax.vmap(lambda a: hybrid_factor(a, climate_factor, f["ensemble_weight"], f["static_scale"],
                                                    root))(anomalies)
-        v = gauss_newton_4denvar(backgrounds, factors, obs, mask, settings["observation"]["error_std"] ** 2,
+        v = gauss_newton_4denvar(backgrounds, factors, obs, mask, operator.error_variance(settings["observation"]["error_std"]),
                                  operator, steps)
         trajectory = backgrounds + factors @ v
         analysed, info = update_members(key, state.members, y, trajectory[filled - 1], settings)

@@ -104,7 +104,7 @@ def make_member_update(size: int, operator, radius: float | None, pieces=frozens
     def update(key, prior, y_and_mean, settings):
         del key  # deterministic
         y, mean = y_and_mean
-        error_var = settings["observation"]["error_std"] ** 2
+        error_var = operator.error_variance(settings["observation"]["error_std"])
         return recentred(mean, perturbation_update(prior, y, error_var, settings["filter"])), {}
 
     inflated = with_inflation(update, pieces)

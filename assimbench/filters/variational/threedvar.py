@@ -21,10 +21,15 @@ from assimbench.models.climatology import climatology
 
 
 def threedvar_cost(x, background, y, b_cov, error_var, h):
-    """J(x) above; background (n,), b_cov (n, n) = B, error_var scalar."""
+    """J(x) above; background (n,), b_cov (n, n) = B, error_var scalar or (p,)."""
     dx = x - background
     dy = y - h(x)
-    return 0.5 * dx @ jnp.linalg.solve(b_cov, dx) + 0.5 * dy @ dy / error_var
+    return 0.5 * dx @ jnp.linalg.solve(b_cov, dx) + 0.5 * jnp.sum(dy * dy / error_var)
+
+
+def _diagonal(error_var, size: int):
+    """R (size, size) from a scalar variance or one per observation."""
+    return error_var * jnp.eye(size) if jnp.ndim(error_var) == 0 else jnp.diag(error_var)
 
 
 def gauss_newton_3dvar(background, y, b_cov, error_var, h, iterations: int):
@@ -37,7 +42,7 @@ def gauss_newton_3dvar(background, y, b_cov, error_var, h, iterations: int):
     def step(x, _):
         jac = jax.jacfwd(h)(x)
         departure = y - h(x) + jac @ (x - background)
-        innovation_cov = jac @ b_cov @ jac.T + error_var * jnp.eye(jac.shape[0])
+        innovation_cov = jac @ b_cov @ jac.T + _diagonal(error_var, jac.shape[0])
         x_next = background + b_cov @ jac.T @ jnp.linalg.solve(innovation_cov, departure)
         return x_next, x_next
 
@@ -52,7 +57,7 @@ def make_3dvar(operator, climate_cov, iterations: int) -> Filter:
     def analyse(key, state, y, settings):
         del key
         b_cov = settings["filter"]["b_scale"] * climate_cov
-        error_var = settings["observation"]["error_std"] ** 2
+        error_var = operator.error_variance(settings["observation"]["error_std"])
         path = gauss_newton_3dvar(state.members[0], y, b_cov, error_var, operator, 1 if operator.linear else iterations)
         return EnsembleState(members=path[-1][None, :]), {}
 
