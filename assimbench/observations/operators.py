@@ -2,8 +2,10 @@
 stations anywhere on the grid (linear interpolation between grid points).
 
 The noise level is not part of the operator: it is the dynamic parameter
-``observation.error_std`` (R = error_std**2 I), so one compiled program serves
-every noise level of a sweep. ``observation.transform`` makes h nonlinear
+``observation.error_std`` (R = error_std**2 I, or error_std**2 diag(f**2)
+with the network's static per-station factors f), so one compiled program
+serves every noise level of a sweep. Filters read R only through
+:meth:`ObservationOperator.error_variance` and ``error_std_of``. ``observation.transform`` makes h nonlinear
 (the same noise model), so users can see where Gaussian assumptions break.
 """
 
