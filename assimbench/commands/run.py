@@ -136,15 +136,22 @@ def network_line(config: dict) -> str:
     return f"{seen}{how} every {net.get('interval'):g} time units, error std {net.get('error_std'):g}{scaled}"
 
 
+def observation_error(config: dict, error_std=None) -> tuple:
+    """(the observation error a reader compares with, its label's suffix): ``error_std`` (default the
+    config's), or with per-station factors the root mean square of the stations' errors."""
+    network = config.get("observation", {})
+    error = float(network.get("error_std", np.nan) if error_std is None else error_std)
+    factors = network.get("error_factors")
+    if factors is None:
+        return error, ""
+    return error * float(np.sqrt(np.mean(np.square(list(factors))))), " (RMS over the stations)"
+
+
 def reference_lines(summary: dict, config: dict, climate: float) -> list:
     """The reference levels beside the filter's numbers: the observation error and climatology, and
     where the analysis stands against them."""
-    error = float(config.get("observation", {}).get("error_std", np.nan))
-    factors = config.get("observation", {}).get("error_factors")
-    if factors is not None:  # unequal errors: their root mean square over the stations
-        error *= float(np.sqrt(np.mean(np.square(factors))))
+    error, rms = observation_error(config)
     identity = config.get("observation", {}).get("transform", "identity") == "identity"
-    rms = " (RMS over the stations)" if factors is not None else ""
     levels = ([f"observation error {error:.4f}{rms}"] if identity else []) + [f"climatology {climate:.4f} "
                                                                           "(RMSE of the climatological mean)"]
     lines = ["  references          " + ", ".join(levels)]
@@ -182,8 +189,9 @@ def format_summary(result, path, title: str) -> str:
         head[0] += f", {result.lane_count} lanes"
         lines = head + _lane_rows(result)
         if climate is not None:
-            error = config.get("observation", {}).get("error_std")
-            lines.append(f"  references          observation error {error:g}, climatology "
+            swept = result.lanes.get("observation.error_std")
+            error, rms = observation_error(config, None if swept is None else swept[0])
+            lines.append(f"  references          observation error {error:.4g}{rms}, climatology "
                          f"{_lane_value(climate, 0):.4f} (RMSE of the climatological mean, lane 0)")
         return "\n".join(lines + _footer(result, path))
     s = result.summary

@@ -52,8 +52,16 @@ def _check(c: NodeChecks, truth) -> None:
         _check_error_factors(c, truth)
 
 
+def _numbers(c: NodeChecks, key: str) -> list:
+    """The list ``key`` holds, each entry a number (a nested list or a word is refused)."""
+    values = list(c.node[key])
+    if any(isinstance(v, bool) or not isinstance(v, (int, float)) for v in values):
+        c.fail(key, str(c.node[key]), "a flat list of numbers")
+    return values
+
+
 def _check_error_factors(c: NodeChecks, truth) -> None:
-    factors = list(c.node.error_factors)
+    factors = _numbers(c, "error_factors")
     shown = "[" + ",".join(f"{f:g}" for f in factors) + "]"
     count = len(c.node.stations) if c.node.stations is not None else -(-truth.resolved // int(c.node.stride))
     if len(factors) != count:
@@ -64,7 +72,7 @@ def _check_error_factors(c: NodeChecks, truth) -> None:
 
 
 def _check_stations(c: NodeChecks, truth) -> None:
-    stations = list(c.node.stations)
+    stations = _numbers(c, "stations")
     shown = "[" + ",".join(f"{q:g}" for q in stations) + "]"
     if int(c.node.stride) != 1:
         c.fail("stride", c.node.stride, f"1 when {c.name('stations')} is given (a station list replaces the stride; "

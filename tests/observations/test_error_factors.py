@@ -44,6 +44,7 @@ def test_each_station_is_observed_with_its_own_error(tmp_path):
 @pytest.mark.parametrize("overrides, words", [
     (["observation.error_factors=[1,2]"], ["observation.error_factors", "one factor per station: 6 here, got 2"]),
     (["observation.error_factors=[1,2,0,1,1,1]"], ["observation.error_factors", "finite factors > 0"]),
+    (["observation.error_factors=[1,[2],1,1,1,1]"], ["observation.error_factors", "a flat list of numbers"]),
     (["observation.stride=1", "observation.stations=[0,5.5]", "observation.error_factors=[1,-1]"],
      ["observation.error_factors", "> 0"]),
 ])
@@ -105,3 +106,13 @@ def test_unequal_errors_in_the_particle_filter_weigh_by_the_gaussian_likelihood(
                                              members=50)
     loglik = np.array([stats.multivariate_normal(H @ x, R).logpdf(y) for x in ensemble])
     np.testing.assert_allclose(np.asarray(analysed.log_weights), loglik - logsumexp(loglik), rtol=0, atol=1e-10)
+
+
+def test_the_printed_observation_error_is_the_stations_root_mean_square():
+    """The reference a run prints beside its RMSE, also for lane 0 of an error_std sweep."""
+    from assimbench.commands.run import observation_error
+
+    config = {"observation": {"error_std": 0.5, "error_factors": [1.0, 2.0, 0.5, 1.5]}}
+    assert observation_error(config) == (0.5 * np.sqrt((1 + 4 + 0.25 + 2.25) / 4), " (RMS over the stations)")
+    assert observation_error(config, 2.0)[0] == 4 * observation_error(config)[0]
+    assert observation_error({"observation": {"error_std": 0.5}}) == (0.5, "")

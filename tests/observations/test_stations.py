@@ -75,6 +75,7 @@ def test_stations_between_grid_points_are_assimilated(filter_overrides):
     (["observation.stations=[0,40]"], ["observation.stations", "below the observable state size 40", "40 is not"]),
     (["observation.stations=[-1,3]"], ["observation.stations", "-1 is not"]),
     (["observation.stations=[3,3]"], ["observation.stations", "each position once"]),
+    (["observation.stations=[1,[2]]"], ["observation.stations", "a flat list of numbers"]),
     (["observation.stations=[0,2]", "observation.stride=2"], ["observation.stride", "replaces the stride"]),
     (["model=lorenz63", "observation.stations=[0.5]"], ["observation.stations", "lorenz63", "cannot lie between"]),
 ])
