@@ -109,7 +109,8 @@ class ThreeDEnVarConfig(InflationConfig):
     iterations: int = 3
 
 
-def _check(c, model) -> None:
+def check_3denvar(c, model) -> None:
+    """Ranges of the 3DEnVar's keys (the 4DEnVar's too, besides its window)."""
     check_inflation(c)
     check_hybrid_weights(c)
     check_radius(c, model)
@@ -122,7 +123,7 @@ SPEC = FilterSpec(
     build=lambda node, ctx: make_3denvar(ctx.model, ctx.operator, climatology(ctx.model)[1], int(node.members),
                                          radius_of(node), int(node.iterations), inflation_pieces(node)),
     settings=hybrid_settings,
-    check=_check,
+    check=check_3denvar,
     traced=HYBRID_TRACED,
     widest=WIDEST + ("radius",),
     climatology=True,

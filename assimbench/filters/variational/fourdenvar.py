@@ -44,16 +44,11 @@ import numpy as np
 
 from assimbench.config.spec import FilterSpec
 from assimbench.filters.base import Filter
-from assimbench.filters.kalman.inflation import (
-    WIDEST,
-    InflationConfig,
-    check_inflation,
-    inflation_pieces,
-)
+from assimbench.filters.kalman.inflation import WIDEST, inflation_pieces
+from assimbench.filters.variational.envar import ThreeDEnVarConfig, check_3denvar
 from assimbench.filters.variational.hybrid import (
     HYBRID_TRACED,
     WindowEnsembleState,
-    check_hybrid_weights,
     circulant_taper_root,
     hybrid_factor,
     hybrid_settings,
@@ -63,7 +58,7 @@ from assimbench.filters.variational.hybrid import (
     slide_window,
 )
 from assimbench.integrators import make_model_flow
-from assimbench.localization import check_radius, radius_of
+from assimbench.localization import radius_of
 from assimbench.models.climatology import climatology
 
 
@@ -127,28 +122,18 @@ def make_4denvar(model, operator, climate_cov, members: int, window: int, radius
 
 
 @dataclass
-class FourDEnVarConfig(InflationConfig):
+class FourDEnVarConfig(ThreeDEnVarConfig):
     """4DEnVar over a sliding window of ``window`` analysis intervals: B_j from the ensemble
-    trajectories and the static B (weights as the 3DEnVar's); radius the Gaspari-Cohn half-width
-    of the localization and of the LETKF perturbation update (null: none); iterations of
-    Gauss-Newton for a nonlinear h."""
+    trajectories and the static B; the other keys as the 3DEnVar's."""
 
     name: str = "4denvar"
-    members: int = 10
     inflation: float = 1.01
     window: int = 2
-    ensemble_weight: float = 0.8
-    static_scale: float = 0.005
-    radius: float | None = 6.0
-    iterations: int = 3
 
 
 def _check(c, model) -> None:
-    check_inflation(c)
-    check_hybrid_weights(c)
-    check_radius(c, model)
+    check_3denvar(c, model)
     c.integer("window", 1, "an integer >= 1 (analysis intervals)")
-    c.integer("iterations", 1, "an integer >= 1")
 
 
 def _build(node, ctx) -> Filter:
