@@ -17,6 +17,7 @@ from assimbench.config.lanes import COMBINATIONS, check_lane_lists, given_lanes,
 from assimbench.config.schema import ExperimentBase, SmootherConfig, StoreConfig
 from assimbench.config.spec import FilterSpec, ModelFacts
 from assimbench.integrators import steps_per_cycle
+from assimbench.observations.networks import AssumedErrorsConfig, check_assumed
 from assimbench.twin.diagnostics import OPTIONAL, available_groups
 
 
@@ -179,7 +180,7 @@ def _check_lanes(cfg, choice: Choice, cat: Catalogue) -> None:
 
 def _check_known_keys(cfg, specs: dict) -> None:
     """Every key must be one of its node's schema (``+filter.foo=1`` adds a key Hydra accepts)."""
-    schemas = {"": ExperimentBase, "store": StoreConfig, "smoother": SmootherConfig, **{section: spec.schema for section, spec in specs.items()}}
+    schemas = {"": ExperimentBase, "store": StoreConfig, "smoother": SmootherConfig, "assumed": AssumedErrorsConfig, **{section: spec.schema for section, spec in specs.items()}}
     for section, schema in schemas.items():
         node = cfg[section] if section else cfg
         allowed = {f.name for f in dataclasses.fields(schema)} | ({"lanes"} if not section else set())
@@ -202,6 +203,7 @@ def check(cfg: DictConfig) -> Choice:
     interval = NodeChecks(cfg.observation, "observation").real("interval", "a finite model time > 0", minimum=0.0)
     _check_interval(interval, float(cfg.model.dt), "model.dt")
     cat.network.check(NodeChecks(cfg.observation, "observation"), truth)
+    check_assumed(cfg.assumed, cfg.observation, truth)
     forecaster = _forecaster(cfg, cat, forecast, truth, interval)
     filter_spec.check(NodeChecks(cfg.filter, "filter"), forecaster)
     _check_run(cfg)

@@ -25,6 +25,7 @@ from assimbench.filters.smoother import with_fixed_lag
 from assimbench.integrators import steps_per_cycle
 from assimbench.io.provenance import provenance
 from assimbench.models.climatology import climate_std
+from assimbench.observations.networks import assumed_settings, filter_view
 from assimbench.twin.cycling import FIELDS, TwinSetup, experiment_key
 from assimbench.twin.layout import layouts_of
 
@@ -86,10 +87,11 @@ def build_setup(cfg, choice: Choice) -> TwinSetup:
     model = choice.model.build(cfg.model)
     forecaster = _forecast_model(cfg, choice, model)
     operator = catalogue().network.build(cfg.observation, model.resolved_size)
+    view = filter_view(operator, cfg.assumed, cfg.observation)
     interval = float(cfg.observation.interval)
     forecast_steps = steps_per_cycle(interval, forecaster.dt)
     lag = int(cfg.smoother.lag)
-    filt = choice.filter.build(cfg.filter, FilterContext(forecaster, operator, forecast_steps, lag))
+    filt = choice.filter.build(cfg.filter, FilterContext(forecaster, view, forecast_steps, lag))
     if lag > 0 and filt.analyse_lagged is not None:  # otherwise the filter smooths by itself
         filt = with_fixed_lag(filt, lag)
     available = choice.diagnostic_groups(cfg.filter)
@@ -108,6 +110,7 @@ def build_setup(cfg, choice: Choice) -> TwinSetup:
         forecast_steps=forecast_steps if imperfect else 0,
         truth_noise=float(cfg.truth_noise_std) > 0.0,
         smoother_lag=lag,
+        filter_operator=None if view is operator else view,
     )
 
 
@@ -135,6 +138,7 @@ def _lane_settings(lane: DictConfig, choice: Choice, truth, forecaster) -> dict:
         "forecast_model": forecaster.params,
         "truth_noise_std": float(lane.truth_noise_std),
         "observation": catalogue().network.settings(lane.observation),
+        "assumed": assumed_settings(lane.assumed, lane.observation),
         "filter": choice.filter.settings(lane.filter),
         "initial_spread": float(lane.initial_spread),
     }
@@ -155,7 +159,8 @@ def resolve(cfg: DictConfig) -> Plan:
     choice = check(cfg)
     plain = plain_config(cfg)
     grid = lane_grid(choice.lanes, cfg.get("lane_combination", "all"))
-    widest = {f"filter.{key}" for key in choice.filter.widest}
+    # A correlated lane makes the network's R correlated (a lane of length 0 is then independent).
+    widest = {f"filter.{key}" for key in choice.filter.widest} | {"observation.correlation_length"}
     hull = with_values(plain, grid.keys, hull_values(grid, widest)) if grid.keys else plain
     setup = build_setup(hull, choice)
     lanes = [with_values(plain, grid.keys, row) for row in grid.values] if grid.keys else [plain]

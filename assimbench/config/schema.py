@@ -13,7 +13,7 @@ from typing import Any
 
 from omegaconf import MISSING
 
-from assimbench.observations.networks import ObservationConfig
+from assimbench.observations.networks import AssumedErrorsConfig, ObservationConfig
 
 
 @dataclass
@@ -61,7 +61,8 @@ class ExperimentBase:
     filter forecasts with (same: the truth model); truth_noise_std: standard
     deviation of additive model error added to every truth variable after
     each analysis interval (0: none), a model error the forecast model does
-    not know. The defaults are the built-in demo (configs/config.yaml picks
+    not know; assumed: the observation errors the filter assumes where
+    they differ from the truth's (null keys: the truth's). The defaults are the built-in demo (configs/config.yaml picks
     its components).
     """
 
@@ -69,6 +70,7 @@ class ExperimentBase:
     forecast_model: Any = MISSING
     truth_noise_std: float = 0.0
     observation: ObservationConfig = field(default_factory=ObservationConfig)
+    assumed: AssumedErrorsConfig = field(default_factory=AssumedErrorsConfig)
     filter: Any = MISSING
     cycles: int = 3000
     burn_in: int = 500

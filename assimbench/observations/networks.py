@@ -2,19 +2,25 @@
 
 Every ``stride``-th resolved variable, or ``stations`` at any grid positions
 (linear interpolation between grid points), every ``interval`` model time
-units, through an elementwise ``transform``, with independent errors of
-standard deviation ``error_std`` (R = error_std^2 I, a traced setting). The
-group's options (``every_station``, ``every_other_station``) are presets of
-this one spec.
+units, through an elementwise ``transform``, with errors of standard
+deviation ``error_std`` (a traced setting) times per-station factors,
+correlated over ``correlation_length`` grid units (traced; 0: independent)
+with a ``correlation_shape``. The group's options (``every_station``,
+``every_other_station``) are presets of this one spec.
+
+The filter may assume other errors than the truth's: the ``assumed`` node
+(:class:`AssumedErrorsConfig`) gives the filter's own error_std,
+correlation length and shape, and factors; each null key is the truth's.
 """
 
 import math
 from dataclasses import dataclass
 
 import numpy as np
+from omegaconf import OmegaConf
 
 from assimbench.config.spec import NetworkSpec, NodeChecks
-from assimbench.observations.operators import TRANSFORMS, at_stations, every_kth
+from assimbench.observations.operators import CORRELATION_SHAPES, TRANSFORMS, at_stations, every_kth
 
 
 @dataclass
@@ -28,6 +34,9 @@ class ObservationConfig:
     grid positions in [0, n) (fractions between grid points on a ring), replaces
     the stride. ``error_factors``, one per station, make the errors unequal:
     station i's standard deviation is error_std x error_factors[i].
+    ``correlation_length`` L > 0 (grid units) correlates the errors,
+    R_ij = sigma_i sigma_j rho(d_ij / L) with d_ij the ring distance and rho
+    ``exponential`` (exp(-d/L)) or ``gaussian`` (exp(-d^2 / (2 L^2))).
     """
 
     interval: float = 0.05
@@ -35,7 +44,24 @@ class ObservationConfig:
     stations: list[float] | None = None
     error_factors: list[float] | None = None
     error_std: float = 1.0
+    correlation_length: float = 0.0
+    correlation_shape: str = "exponential"
     transform: str = "identity"
+
+
+@dataclass
+class AssumedErrorsConfig:
+    """The observation errors the filter assumes, R_f (null: the truth's value of that key), so a run can
+    study a misspecified R: a wrong error_std, other factors, independent errors (correlation_length 0)
+    when the truth's are correlated, or another shape."""
+
+    error_std: float | None = None
+    correlation_length: float | None = None
+    correlation_shape: str | None = None
+    error_factors: list[float] | None = None
+
+
+ASSUMED_KEYS = ("error_std", "correlation_length", "correlation_shape", "error_factors")
 
 
 def _check(c: NodeChecks, truth) -> None:
@@ -50,6 +76,63 @@ def _check(c: NodeChecks, truth) -> None:
         _check_stations(c, truth)
     if c.node.error_factors is not None:
         _check_error_factors(c, truth)
+    _check_correlation(c, truth, c.node)
+
+
+def _check_correlation(c: NodeChecks, truth, network) -> None:
+    """correlation_length >= 0 on a ring model, a known shape, and an R that is positive definite
+    (``network``: the observation node whose stations R is built on)."""
+    length = c.real("correlation_length", "a finite length >= 0 in grid units (0: independent errors)",
+                    minimum=0.0, strict=False)
+    if c.node.correlation_shape not in CORRELATION_SHAPES:
+        c.fail("correlation_shape", c.node.correlation_shape, "one of " + ", ".join(CORRELATION_SHAPES))
+    if length == 0:
+        return
+    if not truth.ring:
+        c.fail("correlation_length", length, f"0: {truth.name} has no distance between variables")
+    operator = _build(network, truth.resolved)._replace(correlation_shape=str(c.node.correlation_shape))
+    correlation = np.asarray(operator.error_correlation({operator.error_section: {"correlation_length": length}}))
+    smallest = float(np.linalg.eigvalsh(correlation)[0])
+    # Relative to the largest eigenvalue: below this the Cholesky factor loses most of its digits.
+    if smallest <= 1e-10 * float(np.linalg.eigvalsh(correlation)[-1]):
+        c.fail("correlation_length", length, f"a length whose R is positive definite: with the "
+               f"{c.node.correlation_shape} shape on these {operator.size} stations the correlation matrix's "
+               f"smallest eigenvalue is {smallest:.2g} (use a shorter length or the exponential shape)")
+
+
+def check_assumed(assumed, observation, truth) -> None:
+    """The ``assumed`` node's keys (each null, or a value allowed for the network's key of that name)."""
+    c = NodeChecks(assumed, "assumed")
+    if assumed.error_std is not None:
+        c.real("error_std", "a finite standard deviation > 0, or null for the truth's", minimum=0.0)
+    if assumed.error_factors is not None:
+        _check_error_factors(NodeChecks(_merged(assumed, observation), "assumed"), truth)
+    if assumed.correlation_length is not None or assumed.correlation_shape is not None:
+        _check_correlation(NodeChecks(_merged(assumed, observation), "assumed"), truth, observation)
+
+
+def _merged(assumed, observation):
+    """The observation node with the assumed keys that are set (for the network's checks)."""
+    merged = OmegaConf.to_container(observation)
+    merged.update({key: assumed[key] for key in ASSUMED_KEYS if assumed[key] is not None})
+    return OmegaConf.create(merged)
+
+
+def assumed_settings(assumed, observation) -> dict:
+    """settings["assumed"]: the filter's error_std and correlation_length, each the truth's where null."""
+    return {key: float(observation[key] if assumed[key] is None else assumed[key])
+            for key in ("error_std", "correlation_length")}
+
+
+def filter_view(operator, assumed, observation):
+    """The network as the filter sees it: ``operator`` itself when ``assumed`` sets nothing, else with
+    the assumed factors and correlation, reading settings["assumed"]."""
+    if all(assumed[key] is None for key in ASSUMED_KEYS):
+        return operator
+    merged = _merged(assumed, observation)
+    factors = None if merged.error_factors is None else np.asarray(list(merged.error_factors), dtype=np.float64)
+    shape = str(merged.correlation_shape) if float(merged.correlation_length) > 0 else None
+    return operator._replace(error_factors=factors, correlation_shape=shape, error_section="assumed")
 
 
 def _numbers(c: NodeChecks, key: str) -> list:
@@ -95,6 +178,8 @@ def _build(node, resolved: int):
         operator = every_kth(resolved, int(node.stride), str(node.transform))
     else:
         operator = at_stations(resolved, list(node.stations), str(node.transform))
+    if float(node.get("correlation_length", 0.0)) > 0:
+        operator = operator._replace(correlation_shape=str(node.correlation_shape))
     if node.error_factors is None:
         return operator
     return operator._replace(error_factors=np.asarray(list(node.error_factors), dtype=np.float64))
@@ -105,5 +190,5 @@ SPEC = NetworkSpec(
     schema=ObservationConfig,
     build=_build,
     check=_check,
-    traced=("error_std",),
+    traced=("error_std", "correlation_length"),
 )

@@ -1,25 +1,67 @@
 """Observation operators ``h(x) -> y`` with a known output size: every ``stride``-th variable, or
 stations anywhere on the grid (linear interpolation between grid points).
 
-The noise level is not part of the operator: it is the dynamic parameter
-``observation.error_std`` (R = error_std**2 I, or error_std**2 diag(f**2)
-with the network's static per-station factors f), so one compiled program
-serves every noise level of a sweep. Filters read R only through
-:meth:`ObservationOperator.error_variance` and ``error_std_of``. ``observation.transform`` makes h nonlinear
-(the same noise model), so users can see where Gaussian assumptions break.
+The noise level is not part of the operator: it is the traced setting
+``error_std`` of the operator's settings section (``observation`` for the
+truth's network, ``assumed`` for the filter's view of it), so one compiled
+program serves every noise level of a sweep. With the network's static
+per-station factors f and, when ``correlation_shape`` is set, the traced
+``correlation_length`` L,
+
+    R_ij = sigma_i sigma_j rho(d_ij / L),   sigma_i = error_std f_i,
+
+d_ij the ring distance between stations i and j, rho exponential,
+exp(-d/L), or Gaussian, exp(-d^2 / (2 L^2)) (common practice). Filters read R
+only through :meth:`ObservationOperator.whiten`: with R diagonal they see
+h and y as they are with R's diagonal; with a correlated R they see
+L^-1 h and L^-1 y with R = I, L the Cholesky factor of R (the whitening
+every filter then shares). ``observation.transform`` makes h nonlinear (the
+same noise model), so users can see where Gaussian assumptions break.
 """
 
-from typing import NamedTuple
+from typing import Callable, NamedTuple
 
 import jax
 import jax.numpy as jnp
 import numpy as np
+from jax.scipy.linalg import solve_triangular
 
 TRANSFORMS = {
     "identity": lambda v: v,
     "absolute": jnp.abs,
     "square": jnp.square,
 }
+
+
+def _exponential(scaled):
+    return jnp.exp(-scaled)
+
+
+def _gaussian(scaled):
+    return jnp.exp(-0.5 * scaled**2)
+
+
+CORRELATION_SHAPES = {"exponential": _exponential, "gaussian": _gaussian}
+
+
+class Whitened(NamedTuple):
+    """What a filter assimilates: ``observe`` (x (..., n) -> (..., p)) and ``obs`` (p,) in a frame where
+    R is diagonal with ``variance`` (a scalar or (p,)); ``std`` = sqrt(variance) as the truth draws it.
+    For a correlated R the frame is the whitened one (observe = L^-1 h, obs = L^-1 y, variance 1) and
+    ``covariance`` holds R itself (p, p) for the filters that localize R's blocks; ``operator`` and
+    ``y`` are the unwhitened h and y. On a network with outages, ``seen`` (p,) marks the stations that
+    reported: a missing one is 0 in y and in h (so it carries no information) and, in a correlated R,
+    decoupled from the others with unit variance (R's block of the stations seen is what is used).
+    Without outages ``seen`` is None."""
+
+    observe: Callable
+    obs: jax.Array
+    variance: object
+    std: object
+    operator: object
+    y: jax.Array
+    covariance: jax.Array | None = None
+    seen: jax.Array | None = None
 
 
 class ObservationOperator(NamedTuple):
@@ -36,7 +78,13 @@ class ObservationOperator(NamedTuple):
     R = error_std^2 diag(error_factors^2) (None: all 1); transform: a key of
     TRANSFORMS applied elementwise after the selection or interpolation;
     limit: only the first ``limit`` variables are observable (a two-scale
-    model's slow variables come first; None: all).
+    model's slow variables come first; None: all); correlation_shape: a key
+    of CORRELATION_SHAPES for correlated errors (None: independent errors,
+    R diagonal); error_section: the settings section whose ``error_std``
+    and ``correlation_length`` set R (``observation``: the truth's errors;
+    ``assumed``: the filter's view of them); outages: stations may be missing
+    in a cycle (y then holds NaN there; :mod:`assimbench.observations.outages`),
+    schedule: the network's scheduled outages (an OutageSchedule or None).
     """
 
     indices: np.ndarray
@@ -46,15 +94,76 @@ class ObservationOperator(NamedTuple):
     limit: int | None = None
     fractions: np.ndarray | None = None
     error_factors: np.ndarray | None = None
+    correlation_shape: str | None = None
+    error_section: str = "observation"
+    outages: bool = False
+    schedule: object = None
 
-    def error_std_of(self, error_std):
-        """The stations' error standard deviations: ``error_std`` (the traced network-wide value),
-        times each station's factor when the network gives factors ((p,); else the scalar itself)."""
+    def error_std_of(self, settings):
+        """The stations' error standard deviations: the traced ``error_std`` of the operator's settings
+        section, times each station's factor when the network gives factors ((p,); else the scalar)."""
+        error_std = settings[self.error_section]["error_std"]
         return error_std if self.error_factors is None else error_std * jnp.asarray(self.error_factors)
 
-    def error_variance(self, error_std):
-        """R's diagonal, error_std_of(error_std)^2: a scalar, or (p,) with per-station factors."""
-        return self.error_std_of(error_std) ** 2
+    def error_variance(self, settings):
+        """R's diagonal, error_std_of(settings)^2: a scalar, or (p,) with per-station factors."""
+        return self.error_std_of(settings) ** 2
+
+    @property
+    def correlated(self) -> bool:
+        return self.correlation_shape is not None
+
+    def station_distances(self) -> np.ndarray:
+        """(p, p) ring distances between the stations, in grid units."""
+        size = self.limit if self.limit is not None else int(np.max(self.positions)) + 1
+        d = np.abs(self.positions[:, None] - self.positions[None, :]) % size
+        return np.minimum(d, size - d)
+
+    def error_correlation(self, settings) -> jax.Array:
+        """(p, p) rho(d_ij / L) with L the traced ``correlation_length`` (L = 0: the identity)."""
+        distance = self.station_distances()
+        length = settings[self.error_section]["correlation_length"]
+        shape = CORRELATION_SHAPES[self.correlation_shape]
+        # L = 0 in a lane of a correlated run means independent errors: rho(inf) = 0 off the diagonal.
+        scaled = jnp.where(distance > 0, distance / jnp.maximum(length, 1e-300), 0.0)
+        return jnp.where(distance > 0, shape(scaled), 1.0)
+
+    def error_covariance(self, settings) -> jax.Array:
+        """R (p, p): diag(sigma) rho diag(sigma), or diag(sigma^2) for independent errors."""
+        std = jnp.broadcast_to(self.error_std_of(settings), (self.size,))
+        if not self.correlated:
+            return jnp.diag(std**2)
+        return std[:, None] * self.error_correlation(settings) * std[None, :]
+
+    def error_root(self, settings) -> jax.Array:
+        """L (p, p), lower triangular, R = L L^T (the truth's noise is L e, e ~ N(0, I))."""
+        return jnp.linalg.cholesky(self.error_covariance(settings))
+
+    def noise(self, standard, settings) -> jax.Array:
+        """Observation errors from standard normal ``standard`` (p,): sigma e, or L e when correlated."""
+        if not self.correlated:
+            return self.error_std_of(settings) * standard
+        return self.error_root(settings) @ standard
+
+    def whiten(self, settings, y) -> Whitened:
+        """The frame a filter assimilates ``y`` (p,) in (:class:`Whitened`). Independent errors: h and y
+        unchanged with R's diagonal (no arithmetic added: the results are those of a diagonal R).
+        Correlated: L^-1 h and L^-1 y with unit variance, L = cholesky(R). Missing stations (NaN in y)
+        are masked (:class:`Whitened`)."""
+        observe, seen = self, None
+        if self.outages:
+            seen = jnp.isfinite(y)
+            y = jnp.where(seen, y, 0.0)
+            observe = lambda x: jnp.where(seen, self(x), 0.0)
+        if not self.correlated:
+            std = self.error_std_of(settings)
+            return Whitened(observe, y, std**2, std, observe, y, None, seen)
+        covariance = self.error_covariance(settings)
+        if seen is not None:
+            covariance = jnp.where(seen[:, None] & seen[None, :], covariance, jnp.eye(self.size))
+        root = jnp.linalg.cholesky(covariance)
+        apply = lambda v: whiten_with(root, v)
+        return Whitened(lambda x: apply(observe(x)), apply(y), 1.0, 1.0, observe, y, covariance, seen)
 
     @property
     def size(self) -> int:
@@ -91,6 +200,12 @@ class ObservationOperator(NamedTuple):
         # (1 - a) x_i + a x_(i+1): exactly x_i for a station on a grid point.
         at_right = x[..., (self.indices + 1) % (self.limit or x.shape[-1])]
         return TRANSFORMS[self.transform]((1.0 - self.fractions) * at_left + self.fractions * at_right)
+
+
+def whiten_with(root, v):
+    """L^-1 v for lower-triangular ``root`` L (p, p) and v (..., p): solve L z = v along the last axis."""
+    flat = v.reshape(-1, v.shape[-1]).T  # (p, m)
+    return solve_triangular(root, flat, lower=True).T.reshape(v.shape)
 
 
 def every_kth(state_size: int, stride: int, transform: str = "identity") -> ObservationOperator:

@@ -62,7 +62,9 @@ class TwinSetup(NamedTuple):
     experiment) and forecast_steps its steps per interval; truth_noise: the
     truth gets additive model error, N(0, truth_noise_std^2 I) per interval;
     smoother_lag: K > 0 when the filter carries a fixed-lag smoother
-    (:mod:`assimbench.filters.smoother`), whose errors at lags 1 .. K are scored.
+    (:mod:`assimbench.filters.smoother`), whose errors at lags 1 .. K are scored;
+    filter_operator: the network as the filter sees it when its assumed
+    errors differ from the truth's (None: ``operator``), for the diagnostics.
     """
 
     model: Model
@@ -75,6 +77,11 @@ class TwinSetup(NamedTuple):
     forecast_steps: int = 0
     truth_noise: bool = False
     smoother_lag: int = 0
+    filter_operator: ObservationOperator | None = None
+
+    @property
+    def assimilated_operator(self) -> ObservationOperator:
+        return self.operator if self.filter_operator is None else self.filter_operator
 
     @property
     def forecaster(self) -> Model:
@@ -162,7 +169,7 @@ def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycl
             if truth_noise:
                 x = x + settings["truth_noise_std"] * jax.random.normal(jax.random.fold_in(noise_key, k), x.shape)
             noise = operator.standard_noise(jax.random.fold_in(obs_key, k), resolved)
-            return x, (x[:resolved], operator(x) + operator.error_std_of(settings["observation"]["error_std"]) * noise)
+            return x, (x[:resolved], operator(x) + operator.noise(noise, settings))
 
         truth_end, (truths, ys) = jax.lax.scan(step, truth, first_cycle + jnp.arange(length))
         return truth_end, truths, ys
@@ -184,7 +191,7 @@ def make_cycle(setup: TwinSetup, scalar_names: list):
         scored = lambda state: state
     else:  # a forecast model with unresolved variables of its own: score the resolved ones
         scored = lambda state: state._replace(members=state.members[..., :resolved])
-    diagnose = make_cycle_diagnostics(setup.diagnostics, setup.operator, filt.weighted)
+    diagnose = make_cycle_diagnostics(setup.diagnostics, setup.assimilated_operator, filt.weighted)
     fields = setup.fields
 
     def cycle(carry, inputs, settings, filter_key):

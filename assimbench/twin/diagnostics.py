@@ -214,10 +214,10 @@ def make_cycle_diagnostics(groups, operator, weighted: bool):
             for when, state in (("forecast", forecast), ("analysis", analysis)):
                 weights = normalised_weights(state) if weighted else None
                 out[f"crps_{when}"], out[f"crps_fair_{when}"] = ensemble_crps(state.members, weights, truth)
-        error_std = operator.error_std_of(settings["observation"]["error_std"])
+        error_std = operator.error_std_of(settings)
         if "rank_histogram" in groups:
             out["rank_truth_forecast"] = rank_counts(forecast.members, truth)
-            noisy = operator(forecast.members) + error_std * rank_noise
+            noisy = operator(forecast.members) + jax.vmap(lambda e: operator.noise(e, settings))(rank_noise)
             out["rank_observation_forecast"] = rank_counts(noisy, y)
         needs_innovations = "innovation" in groups or "desroziers" in groups
         if needs_innovations:

@@ -68,17 +68,33 @@ def _kalman(mean, cov, h, r, y):
     return mean + gain @ (y - h @ mean), (np.eye(mean.size) - gain @ h) @ cov
 
 
-@pytest.mark.parametrize("factors", [None, [1.0, 2.0, 0.5, 1.5]])
+def _correlation(shape: str, length: float):
+    """rho(d) on the 8-ring's stations 0, 2, 4, 6 (d the ring distance), exponential exp(-d/L) or
+    Gaussian exp(-d^2 / (2 L^2)) (common practice); None: independent errors."""
+    if shape is None:
+        return np.eye(4)
+    d = np.abs(np.arange(0, 8, 2)[:, None] - np.arange(0, 8, 2)[None, :])
+    d = np.minimum(d, 8 - d)
+    return np.exp(-d / length) if shape == "exponential" else np.exp(-0.5 * (d / length) ** 2)
+
+
+@pytest.mark.parametrize("factors, shape, length", [(None, None, 0.0), ([1.0, 2.0, 0.5, 1.5], None, 0.0),
+                                                    ([1.0, 2.0, 0.5, 1.5], "exponential", 1.5),
+                                                    (None, "gaussian", 1.0)])
 @pytest.mark.parametrize("name", sorted(n for n, s in catalogue().filters.items() if s.kalman_exact))
-def test_filters_that_declare_it_equal_the_kalman_filter_on_a_linear_gaussian_problem(name, factors):
+def test_filters_that_declare_it_equal_the_kalman_filter_on_a_linear_gaussian_problem(name, factors, shape, length):
     """One analysis with no inflation and no localization, from an ensemble of 30 members of an 8-variable
     state, observed at every other variable with error 0.5: the analysis mean and covariance equal
     the Kalman filter's from the ensemble's sample mean and covariance (Evensen 2003, Ocean Dyn. 53;
-    Hunt et al. 2007, Physica D 230, Sec. 2); with per-station factors, R = 0.25 diag(factors^2)."""
+    Hunt et al. 2007, Physica D 230, Sec. 2); with per-station factors and correlated errors,
+    R = 0.25 diag(factors) rho diag(factors), which the filters assimilate whitened by R's Cholesky
+    factor (the full R in the textbook formula here)."""
     overrides = ["model.size=8", "observation.stride=2", "observation.error_std=0.5", f"filter={name}",
                  "filter.members=30", "filter.inflation=1.0"]
     if factors is not None:
         overrides.append("observation.error_factors=[" + ",".join(map(str, factors)) + "]")
+    if shape is not None:
+        overrides += [f"observation.correlation_length={length}", f"observation.correlation_shape={shape}"]
     if "radius" in compose_config([f"filter={name}"], validate=False).filter:
         overrides.append("filter.radius=null")
     plan = resolve(compose_config(overrides))
@@ -91,7 +107,8 @@ def test_filters_that_declare_it_equal_the_kalman_filter_on_a_linear_gaussian_pr
     analysed, _ = filt.analyse(key, state, jax.numpy.asarray(y), settings)
     members = np.asarray(analysed.members)
     h = np.eye(8)[operator.indices]
-    r = 0.25 * np.diag(np.square(factors if factors is not None else np.ones(operator.size)))
+    scale = np.diag(factors if factors is not None else np.ones(operator.size))
+    r = 0.25 * scale @ _correlation(shape, length) @ scale
     mean, cov = _kalman(ensemble.mean(axis=0), np.cov(ensemble, rowvar=False), h, r, y)
     np.testing.assert_allclose(members.mean(axis=0), mean, rtol=1e-10, atol=1e-10)
     np.testing.assert_allclose(np.cov(members, rowvar=False), cov, rtol=1e-9, atol=1e-10)

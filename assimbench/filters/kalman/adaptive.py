@@ -98,9 +98,10 @@ def adaptive_ensemble_filter(name: str, members: int, update, operator, pieces=f
     def adapted(state, y, settings):
         """(rho_a, the settings with its anomaly factor in place of filter.inflation)."""
         f = settings["filter"]
-        error_var = operator.error_variance(settings["observation"]["error_std"])
+        white = operator.whiten(settings, y)  # a correlated R: whitened innovations, tapered by station
         local = None if local_windows is None else local_windows(settings)
-        rho = update_inflation(state.rho, operator(state.members), y, error_var, f["adaptive_std"] ** 2, local)
+        rho = update_inflation(state.rho, white.observe(state.members), white.obs, white.variance,
+                               f["adaptive_std"] ** 2, local)
         rho = jnp.clip(rho, f["adaptive_min"] ** 2, f["adaptive_max"] ** 2)
         factor = jnp.sqrt(rho)  # scalar, or (n,): multiplies the anomalies of each variable
         return rho, {**settings, "filter": {**f, "inflation": factor}}

@@ -53,8 +53,8 @@ def make_denkf(operator, members: int, pieces=frozenset(), solver: str = "eigh")
 
     def update(key, prior, y, settings):
         del key  # deterministic
-        error_var = operator.error_variance(settings["observation"]["error_std"])
-        return denkf_analysis(prior, operator(prior), y, error_var, solver), {}
+        white = operator.whiten(settings, y)
+        return denkf_analysis(prior, white.observe(prior), white.obs, white.variance, solver), {}
 
     return ensemble_filter("denkf", members, update, pieces)
 

@@ -54,12 +54,13 @@ def make_enkf(operator, members: int, centre_perturbations: bool, pieces=frozens
     mean so the analysis mean is the Kalman update of the forecast mean (static choice)."""
 
     def update(key, prior, y, settings):
-        error_std = operator.error_std_of(settings["observation"]["error_std"])
+        white = operator.whiten(settings, y)
         perturbations = jax.random.normal(key, (members, operator.size))
         if centre_perturbations:
             perturbations = perturbations - perturbations.mean(axis=0)
-        perturbed = y + error_std * perturbations
-        return enkf_analysis(prior, operator(prior), perturbed, error_std**2), {}
+        # Unit perturbations of the whitened observations are L e in y's frame: correlated as R is.
+        perturbed = white.obs + white.std * perturbations
+        return enkf_analysis(prior, white.observe(prior), perturbed, white.std**2), {}
 
     return ensemble_filter("enkf", members, update, pieces)
 

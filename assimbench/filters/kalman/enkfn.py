@@ -99,8 +99,8 @@ def make_enkfn(operator, members: int, pieces=frozenset(), extra_count: int = 1)
 
     def update(key, prior, y, settings):
         del key
-        error_var = operator.error_variance(settings["observation"]["error_std"])
-        posterior, zeta = enkfn_analysis(prior, operator(prior), y, error_var, extra_count)
+        white = operator.whiten(settings, y)
+        posterior, zeta = enkfn_analysis(prior, white.observe(prior), white.obs, white.variance, extra_count)
         return posterior, {"inflation": jnp.sqrt((members - 1.0) / zeta)}
 
     return ensemble_filter("enkfn", members, update, pieces, reports_inflation=True)

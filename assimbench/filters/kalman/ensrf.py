@@ -60,7 +60,7 @@ def make_ensrf(model, operator, members: int, radius: float | None, pieces=froze
 
     def update(key, prior, y, settings):
         del key
-        error_var = operator.error_variance(settings["observation"]["error_std"])
+        white = operator.whiten(settings, y)
         if radius is None:
             taper = jnp.ones(distance.shape)
         else:
@@ -68,7 +68,9 @@ def make_ensrf(model, operator, members: int, radius: float | None, pieces=froze
         blocks = prior.shape[1] // size
         if blocks > 1:  # a fixed-lag smoother's earlier states: each variable tapered at its own grid point
             taper = jnp.concatenate([jnp.tile(taper[:, :size], (1, blocks)), taper[:, size:]], axis=1)
-        return ensrf_analysis(prior, operator(prior), y, error_var, taper), {}
+        # A correlated R: the whitened observations L^-1 y are processed one by one, each tapered at the
+        # position of the station of its row (row j of L^-1 mixes stations 1..j, mostly j).
+        return ensrf_analysis(prior, white.observe(prior), white.obs, white.variance, taper), {}
 
     return inflation.ensemble_filter("ensrf", members, update, pieces)
 

@@ -56,8 +56,8 @@ def make_etkf(operator, members: int, pieces=frozenset(), adaptive: bool = False
 
     def update(key, prior, y, settings):
         del key  # deterministic square-root filter
-        error_var = operator.error_variance(settings["observation"]["error_std"])
-        return etkf_analysis(prior, operator(prior), y, error_var, solver), {}
+        white = operator.whiten(settings, y)
+        return etkf_analysis(prior, white.observe(prior), white.obs, white.variance, solver), {}
 
     if adaptive:
         return adaptive_ensemble_filter("etkf", members, update, operator, pieces)

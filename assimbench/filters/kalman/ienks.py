@@ -231,8 +231,9 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
         del key  # deterministic
         obs, weights = window_obs
         f = settings["filter"]
+        white = operator.whiten(settings, obs)  # the window's observations (W, p) in the filter's frame
         analysed, iterations, zeta = window_search(
-            start, obs, weights, operator.error_variance(settings["observation"]["error_std"]), advance, operator,
+            start, white.obs, weights, white.variance, advance, white.observe,
             settings["forecast_model"], max_iterations, f["tolerance"], variant, f["bundle_scale"], solver,
             prior_count)
         return analysed, (iterations, zeta)

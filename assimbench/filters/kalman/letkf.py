@@ -6,12 +6,22 @@ divided by the Gaspari-Cohn weight of the distance between grid point and
 observation (Hunt et al. 2007, sec. 2.3, "observation localization"), so
 distant observations fade out smoothly. The local analyses are one batched
 computation over grid points, never a Python loop.
+
+A correlated R is localized through its local block R_g (the rows and
+columns of the observations grid point g sees) in the symmetric form
+
+    R_g^-1  ->  D_g^(1/2) R_g^-1 D_g^(1/2),   D_g = diag(rho_g),
+
+which is Hunt et al.'s weighting rho_g / r when R_g is diagonal: the
+tapered anomalies and innovations are whitened by the Cholesky factor of
+R_g (a choice of the bench; tapering R_g^-1 entry by entry is another).
 """
 
 from dataclasses import dataclass
 
 import jax.numpy as jnp
 import numpy as np
+from jax.scipy.linalg import solve_triangular
 
 from assimbench.config.spec import FilterSpec
 from assimbench.filters.base import Filter
@@ -48,7 +58,27 @@ def local_windows(state_size: int, positions: np.ndarray, window_radius: float |
     return index, np.take_along_axis(distance, index, axis=1), mask
 
 
-def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight, solver: str = "eigh"):
+def local_error_blocks(covariance, local_index, local_mask):
+    """R_g (n, K, K): the block of R (p, p) between the observations grid point g sees (local_index,
+    local_mask (n, K) from :func:`local_windows`), the padding decoupled with unit variance."""
+    block = covariance[local_index[:, :, None], local_index[:, None, :]]
+    both = local_mask[:, :, None] & local_mask[:, None, :]
+    return jnp.where(both, block, jnp.eye(local_index.shape[1]))
+
+
+def letkf_whitened(members, white, local_index, local_weight, local_mask, solver: str = "eigh"):
+    """:func:`letkf_analysis` of ``members`` in the frame ``white`` gives
+    (:meth:`assimbench.observations.operators.ObservationOperator.whiten`): R's diagonal as it is, or
+    a correlated R by its local blocks."""
+    if white.covariance is None:
+        return letkf_analysis(members, white.observe(members), white.obs, white.variance, local_index,
+                              local_weight, solver)
+    return letkf_analysis(members, white.operator(members), white.y, 1.0, local_index, local_weight, solver,
+                          local_error_blocks(white.covariance, local_index, local_mask))
+
+
+def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight, solver: str = "eigh",
+                   local_cov=None):
     """LETKF analysis of ``members`` (N, n) with local observation weights.
 
     obs_members (N, p); y (p,); error_var scalar or (p,); local_index (n, K) which
@@ -59,6 +89,9 @@ def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight
         A_g = (N - 1) I + Y_g R_g^-1 Y_g^T,
         wbar_g = A_g^-1 Y_g R_g^-1 (y_g - ybar_g),  W_g = sqrt(N - 1) A_g^(-1/2),
         x_a[:, g] = xbar_g + X[:, g] . wbar_g + W_g X[:, g].
+
+    With ``local_cov`` (n, K, K) the local blocks R_g of a correlated R (error_var unused), R_g^-1
+    above is D_g^(1/2) R_g^-1 D_g^(1/2) with D_g = diag(rho_g) (module docstring).
 
     Every grid point's A_g has N - 1 as its smallest eigenvalue. ``solver="eigh"`` decomposes the n
     matrices (a loop of LAPACK calls) and applies W_g without forming it; ``"newton_schulz"`` forms
@@ -71,11 +104,11 @@ def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight
     """
     n_grid = local_index.shape[0]
     if members.shape[1] != n_grid:
-        return _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight, solver)
+        return _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight, solver, local_cov)
     n_members = members.shape[0]
     space = ensemble_space(members, obs_members, 1.0)
     mean, anomalies = space.mean, space.anomalies  # anomalies (N, n)
-    precision, rhs = local_systems(space, y, error_var, local_index, local_weight)
+    precision, rhs = local_systems(space, y, error_var, local_index, local_weight, local_cov)
     column = anomalies.T  # (n, N): the anomalies of each grid point
     if solver == "eigh":
         evals, evecs = jnp.linalg.eigh(precision)  # batched over grid points
@@ -90,11 +123,18 @@ def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight
     return mean + update[None, :] + transformed.T
 
 
-def local_systems(space, y, error_var, local_index, local_weight):
+def local_systems(space, y, error_var, local_index, local_weight, local_cov=None):
     """Every grid point's A_g (n, N, N) and right-hand side Y_g R_g^-1 (y_g - ybar_g) (n, N), from the
     observation-space part of ``space`` (:func:`letkf_analysis`)."""
     n_members = space.obs_anomalies.shape[0]
     local_y = jnp.moveaxis(space.obs_anomalies[:, local_index], 1, 0)  # (n, N, K)
+    if local_cov is not None:
+        root = jnp.linalg.cholesky(local_cov)  # (n, K, K)
+        taper = jnp.sqrt(local_weight)
+        whitened = solve_triangular(root, jnp.swapaxes(local_y * taper[:, None, :], 1, 2), lower=True)  # (n, K, N)
+        departures = solve_triangular(root, ((y - space.obs_mean)[local_index] * taper)[..., None], lower=True)
+        precision = (n_members - 1) * jnp.eye(n_members) + jnp.einsum("gki,gkj->gij", whitened, whitened)
+        return precision, jnp.einsum("gki,gk->gi", whitened, departures[..., 0])
     # R diagonal: a scalar variance, or one per station, taken for each grid point's window.
     local_var = error_var if jnp.ndim(error_var) == 0 else error_var[local_index]
     scaled = local_y * (local_weight / local_var)[:, None, :]
@@ -102,7 +142,7 @@ def local_systems(space, y, error_var, local_index, local_weight):
     return precision, jnp.einsum("gik,gk->gi", scaled, (y - space.obs_mean)[local_index])
 
 
-def _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight, solver):
+def _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight, solver, local_cov=None):
     """:func:`letkf_analysis` of B blocks of n grid points, (N, B n): the first block is analysed and
     every block takes the first block's local weights and transforms, grid point by grid point."""
     n_members, width = members.shape
@@ -111,7 +151,7 @@ def _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight,
     mean = blocks.mean(axis=0)  # (B, n)
     anomalies = blocks - mean
     precision, rhs = local_systems(ensemble_space(members[:, :n_grid], obs_members, 1.0), y, error_var,
-                                   local_index, local_weight)
+                                   local_index, local_weight, local_cov)
     solved = solve_precision(precision, n_members - 1.0, solver)
     weights = solved.apply_inverse(rhs)[:, :, None] + solved.inverse_root(jnp.sqrt(n_members - 1.0))  # (n, N, N)
     # x_a[i, b, g] = mean[b, g] + sum_j (wbar_g,j + W_g,ji) X[j, b, g]
@@ -133,8 +173,7 @@ def make_letkf(model, operator, members: int, radius: float | None, pieces=froze
 
     def update(key, prior, y, settings):
         del key
-        error_var = operator.error_variance(settings["observation"]["error_std"])
-        return letkf_analysis(prior, operator(prior), y, error_var, index, local_weight(settings), solver), {}
+        return letkf_whitened(prior, operator.whiten(settings, y), index, local_weight(settings), mask, solver), {}
 
     if adaptive:  # one factor per grid point, from the observations it sees (assimbench/filters/adaptive.py)
         windows = lambda settings: (index, local_weight(settings))

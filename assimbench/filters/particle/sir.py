@@ -59,8 +59,9 @@ def make_sir(operator, members: int) -> Filter:
         return ParticleState(initial_ensemble, jnp.full(members, -np.log(members), dtype=jnp.float64))
 
     def analyse(key, state, y, settings):
-        error_var = operator.error_variance(settings["observation"]["error_std"])
-        departures = y - operator(state.members)
+        white = operator.whiten(settings, y)  # with a correlated R, |L^-1 (y - h(x))|^2: the full R
+        error_var = white.variance
+        departures = white.obs - white.observe(state.members)
         if jnp.ndim(error_var) == 0:
             misfit = jnp.sum(departures**2, axis=1) / error_var
         else:  # R diagonal with one variance per station

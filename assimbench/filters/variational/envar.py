@@ -85,11 +85,11 @@ def make_3denvar(model, operator, climate_cov, members: int, radius: float | Non
     def update(key, prior, y, settings):
         del key  # deterministic
         f = settings["filter"]
-        error_var = operator.error_variance(settings["observation"]["error_std"])
+        white = operator.whiten(settings, y)
         taper = 1.0 if radius is None else gaspari_cohn(grid_distance / f["radius"])
         b_cov = hybrid_covariance(prior, climate_cov, f["ensemble_weight"], f["static_scale"], taper)
-        mean = gauss_newton_3dvar(prior.mean(axis=0), y, b_cov, error_var, operator, steps)[-1]
-        return recentred(mean, perturbation_update(prior, y, error_var, f)), {}
+        mean = gauss_newton_3dvar(prior.mean(axis=0), white.obs, b_cov, white.variance, white.observe, steps)[-1]
+        return recentred(mean, perturbation_update(prior, white, f)), {}
 
     return ensemble_filter("3denvar", members, update, pieces)
 

@@ -111,8 +111,8 @@ def make_4denvar(model, operator, climate_cov, members: int, window: int, radius
         root = None if radius is None else circulant_taper_root(model.size, f["radius"])
         factors = jax.vmap(lambda a: hybrid_factor(a, climate_factor, f["ensemble_weight"], f["static_scale"],
                                                    root))(anomalies)
-        v = gauss_newton_4denvar(backgrounds, factors, obs, mask, operator.error_variance(settings["observation"]["error_std"]),
-                                 operator, steps)
+        white = operator.whiten(settings, obs)  # the window's observations (W, p) in the filter's frame
+        v = gauss_newton_4denvar(backgrounds, factors, white.obs, mask, white.variance, white.observe, steps)
         trajectory = backgrounds + factors @ v
         analysed, info = update_members(key, state.members, y, trajectory[filled - 1], settings)
         return WindowEnsembleState(members=analysed, start=start, shifted=trajectory[0], obs=obs, filled=filled,

@@ -166,7 +166,8 @@ def analyse_window(start, factor, obs, mask, filled, settings, advance, operator
                    window):
     """(analysis at the window's last observation, analysed state one interval after the start)."""
     params = settings["forecast_model"]
-    v = minimise_window(start, factor, obs, mask, operator.error_std_of(settings["observation"]["error_std"]), advance, operator, params,
+    white = operator.whiten(settings, obs)  # the window's observations (W, p) in the filter's frame
+    v = minimise_window(start, factor, white.obs, mask, white.std, advance, white.observe, params,
                         iterations, inner_iterations)
     x0 = start + factor @ v
     trajectory = jax.lax.scan(lambda x, _: (advance(x, params),) * 2, x0, None, length=window)[1]

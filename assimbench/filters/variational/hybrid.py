@@ -31,7 +31,7 @@ import numpy as np
 from assimbench.config.spec import floats
 from assimbench.filters.kalman.etkf import etkf_analysis
 from assimbench.filters.kalman.inflation import INFLATION_KEYS, with_inflation
-from assimbench.filters.kalman.letkf import letkf_analysis, local_windows
+from assimbench.filters.kalman.letkf import letkf_whitened, local_windows
 from assimbench.localization import gaspari_cohn, radius_setting, ring_distance
 
 # The perturbation update forms its transforms by matrix products only. With LAPACK's batched eigh
@@ -81,16 +81,17 @@ def hybrid_factor(anomalies, climate_factor, ensemble_weight, static_scale, tape
 
 
 def make_perturbation_update(size: int, operator, radius: float | None):
-    """``update(prior, y, error_var, f)`` -> (N, n): the ETKF's analysis of ``prior`` (the LETKF's
+    """``update(prior, white, f)`` -> (N, n): the ETKF's analysis of ``prior`` in the observation frame
+    ``white`` (:meth:`assimbench.observations.operators.ObservationOperator.whiten`; the LETKF's
     with the traced f["radius"] when ``radius``, the configured one fixing the local windows, is
     not None); the caller recentres it on the variational mean."""
     if radius is None:
-        return lambda prior, y, error_var, f: etkf_analysis(prior, operator(prior), y, error_var, SOLVER)
+        return lambda prior, white, f: etkf_analysis(prior, white.observe(prior), white.obs, white.variance, SOLVER)
     index, distance, mask = local_windows(size, operator.positions, radius)
 
-    def update(prior, y, error_var, f):
+    def update(prior, white, f):
         weights = jnp.where(mask, gaspari_cohn(distance / f["radius"]), 0.0)
-        return letkf_analysis(prior, operator(prior), y, error_var, index, weights, SOLVER)
+        return letkf_whitened(prior, white, index, weights, mask, SOLVER)
 
     return update
 
@@ -104,8 +105,7 @@ def make_member_update(size: int, operator, radius: float | None, pieces=frozens
     def update(key, prior, y_and_mean, settings):
         del key  # deterministic
         y, mean = y_and_mean
-        error_var = operator.error_variance(settings["observation"]["error_std"])
-        return recentred(mean, perturbation_update(prior, y, error_var, settings["filter"])), {}
+        return recentred(mean, perturbation_update(prior, operator.whiten(settings, y), settings["filter"])), {}
 
     inflated = with_inflation(update, pieces)
     return lambda key, members, y, mean, settings: inflated(key, members, (y, mean), settings)

@@ -57,8 +57,9 @@ def make_3dvar(operator, climate_cov, iterations: int) -> Filter:
     def analyse(key, state, y, settings):
         del key
         b_cov = settings["filter"]["b_scale"] * climate_cov
-        error_var = operator.error_variance(settings["observation"]["error_std"])
-        path = gauss_newton_3dvar(state.members[0], y, b_cov, error_var, operator, 1 if operator.linear else iterations)
+        white = operator.whiten(settings, y)  # a correlated R: L^-1 h and L^-1 y with R = I
+        path = gauss_newton_3dvar(state.members[0], white.obs, b_cov, white.variance, white.observe,
+                                  1 if operator.linear else iterations)
         return EnsembleState(members=path[-1][None, :]), {}
 
     def init(key, initial_ensemble, settings):
