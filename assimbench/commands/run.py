@@ -133,7 +133,64 @@ def network_line(config: dict) -> str:
     how = "" if transform == "identity" else f", {transform} of the state"
     factors = net.get("error_factors")
     scaled = "" if factors is None else f" x per-station factors {min(factors):g} to {max(factors):g}"
-    return f"{seen}{how} every {net.get('interval'):g} time units, error std {net.get('error_std'):g}{scaled}"
+    length = float(net.get("correlation_length") or 0)
+    correlated = "" if not length else f", correlated over {length:g} grid unit{'s' if length != 1 else ''} ({net.get('correlation_shape')})"
+    line = f"{seen}{how} every {net.get('interval'):g} time units, error std {net.get('error_std'):g}{scaled}{correlated}"
+    return line + outage_words(net) + assumed_words(config.get("assumed") or {})
+
+
+def outage_words(net: dict) -> str:
+    """How the network's stations fail, or nothing for a network without outages."""
+    q, spell, blocks = float(net.get("outage_probability") or 0), float(net.get("outage_spell") or 0), net.get(
+        "outage_schedule")
+    words = []
+    if q:
+        words.append(f"stations out {q:.0%} of the cycles" + (f" in spells of {spell:g} cycles on average" if spell
+                                                              else ", drawn afresh every cycle"))
+    if blocks:
+        words.append(f"{len(blocks)} scheduled outage block{'s' if len(blocks) > 1 else ''}")
+    return "; " + ", ".join(words) if words else ""
+
+
+def assumed_words(assumed: dict) -> str:
+    """The filter's own view of R where it differs from the truth's."""
+    given = {key: value for key, value in assumed.items() if value is not None}
+    if not given:
+        return ""
+    names = {"error_std": "error std", "correlation_length": "correlation length",
+             "correlation_shape": "correlation shape", "error_factors": "factors"}
+    shown = []
+    for key, value in given.items():
+        text = "[" + ",".join(f"{v:g}" for v in value) + "]" if isinstance(value, (list, tuple)) else f"{value:g}" \
+            if isinstance(value, (int, float)) else str(value)
+        shown.append(f"{names.get(key, key)} {text}")
+    return "; the filter assumes " + ", ".join(shown)
+
+
+def assumed_variances(config: dict) -> np.ndarray:
+    """R's diagonal as the filter assumes it, per station (the truth's where ``assumed`` is silent)."""
+    network, assumed = config.get("observation", {}), config.get("assumed") or {}
+    std = assumed.get("error_std") if assumed.get("error_std") is not None else network.get("error_std")
+    factors = assumed.get("error_factors") if assumed.get("error_factors") is not None else network.get("error_factors")
+    return float(std) ** 2 * np.square(np.asarray(factors if factors is not None else [1.0], dtype=float))
+
+
+def station_lines(per_replicate: dict, config: dict) -> list:
+    """The by_station diagnostics in two lines: the stations' Desroziers estimates of their error
+    variance (mean over replicates) against the variances the filter assumed."""
+    if "station_desroziers_r" not in per_replicate:
+        return []
+    estimate = np.nanmean(np.asarray(per_replicate["station_desroziers_r"], dtype=float), axis=-2)
+    network = config.get("observation", {})
+    stations = network.get("stations")
+    positions = (np.asarray(stations, dtype=float) if stations is not None
+                 else int(network.get("stride", 1)) * np.arange(estimate.size, dtype=float))
+    where = lambda i: f"station {i} at {positions[i]:g}"
+    low, high = int(np.nanargmin(estimate)), int(np.nanargmax(estimate))
+    assumed = assumed_variances(config)
+    return [f"  {'by station':<20}Desroziers R from {estimate[low]:.3g} ({where(low)}) to {estimate[high]:.3g} "
+            f"({where(high)}); the filter assumed {assumed.min():.3g} to {assumed.max():.3g}",
+            f"  {'':<20}(every station's: station_desroziers_r in the file's /summary and in Result.per_replicate)"]
 
 
 def observation_error(config: dict, error_std=None) -> tuple:
@@ -210,9 +267,11 @@ def format_summary(result, path, title: str) -> str:
                      f"{s['spread_skill_ratio_analysis']:>22.4f}   (ratio of the time means)")
     for label, name in (("innovation ratio", "innovation_ratio"), ("Desroziers R", "desroziers_r"),
                         ("Desroziers HBH^T", "desroziers_hbht"), ("ESS", "ess"),
-                        ("Gauss-Newton steps", "iterations"), ("member-intervals", "model_integrations")):
+                        ("Gauss-Newton steps", "iterations"), ("member-intervals", "model_integrations"),
+                        ("stations reporting", "stations_seen")):
         if name in s:
             lines.append(f"  {label:<20}{_cell(s, name)}")
+    lines += station_lines(result.per_replicate, config)
     shares = {int(name[len("iterations_share"):]): s[name] for name in s
               if name.startswith("iterations_share") and name[len("iterations_share"):].isdigit()}
     if shares:

@@ -27,6 +27,7 @@ from assimbench.io.provenance import provenance
 from assimbench.models.climatology import climate_std
 from assimbench.observations.networks import assumed_settings, filter_view
 from assimbench.twin.cycling import FIELDS, TwinSetup, experiment_key
+from assimbench.twin.diagnostics import OPT_IN
 from assimbench.twin.layout import layouts_of
 
 
@@ -95,7 +96,8 @@ def build_setup(cfg, choice: Choice) -> TwinSetup:
     if lag > 0 and filt.analyse_lagged is not None:  # otherwise the filter smooths by itself
         filt = with_fixed_lag(filt, lag)
     available = choice.diagnostic_groups(cfg.filter)
-    groups = available if cfg.diagnostics is None else tuple(g for g in available if g in cfg.diagnostics)
+    groups = (tuple(g for g in available if g not in OPT_IN) if cfg.diagnostics is None
+              else tuple(g for g in available if g in cfg.diagnostics))
     wanted = {name: bool(cfg.store[name]) for name in FIELDS if name != "analysis_ensemble"}
     wanted["analysis_ensemble"] = cfg.store.ensemble_every > 0
     imperfect = forecaster is not model
@@ -159,8 +161,10 @@ def resolve(cfg: DictConfig) -> Plan:
     choice = check(cfg)
     plain = plain_config(cfg)
     grid = lane_grid(choice.lanes, cfg.get("lane_combination", "all"))
-    # A correlated lane makes the network's R correlated (a lane of length 0 is then independent).
-    widest = {f"filter.{key}" for key in choice.filter.widest} | {"observation.correlation_length"}
+    # A correlated lane makes the network's R correlated (a lane of length 0 is then independent), a lane
+    # with outages makes the network one with outages (a lane of probability 0 then has none).
+    widest = {f"filter.{key}" for key in choice.filter.widest} | {"observation.correlation_length",
+                                                                   "observation.outage_probability"}
     hull = with_values(plain, grid.keys, hull_values(grid, widest)) if grid.keys else plain
     setup = build_setup(hull, choice)
     lanes = [with_values(plain, grid.keys, row) for row in grid.values] if grid.keys else [plain]

@@ -203,7 +203,8 @@ class ResultWriter:
             ds.attrs["long_name"] = (f"half-width of the 95% interval of the {what}" if base != name else what)
             if base in self._layouts:
                 ds.attrs["units"] = self._layouts[base].units
-            attach(ds, self._lead_dims)
+            # A per-station time mean (the by_station diagnostics) has the station axis last.
+            attach(ds, self._lead_dims + (("station",) if ds.ndim > len(self._lead_dims) else ()))
         for name, values in totals.items():
             ds = group.create_dataset(name, data=self._shaped(values, np.int64))
             ds.attrs["long_name"] = "counts summed over the cycles after burn-in of " + name

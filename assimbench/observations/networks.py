@@ -15,12 +15,14 @@ correlation length and shape, and factors; each null key is the truth's.
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from omegaconf import OmegaConf
 
 from assimbench.config.spec import NetworkSpec, NodeChecks
 from assimbench.observations.operators import CORRELATION_SHAPES, TRANSFORMS, at_stations, every_kth
+from assimbench.observations.outages import outage_schedule
 
 
 @dataclass
@@ -37,6 +39,11 @@ class ObservationConfig:
     ``correlation_length`` L > 0 (grid units) correlates the errors,
     R_ij = sigma_i sigma_j rho(d_ij / L) with d_ij the ring distance and rho
     ``exponential`` (exp(-d/L)) or ``gaussian`` (exp(-d^2 / (2 L^2))).
+    A station is out in a cycle with probability ``outage_probability``, in
+    spells of ``outage_spell`` cycles on average (0: drawn afresh every
+    cycle); ``outage_schedule`` lists blocks {first_cycle, last_cycle,
+    stations: [station numbers from 0]} out on top
+    (:mod:`assimbench.observations.outages`).
     """
 
     interval: float = 0.05
@@ -46,6 +53,9 @@ class ObservationConfig:
     error_std: float = 1.0
     correlation_length: float = 0.0
     correlation_shape: str = "exponential"
+    outage_probability: float = 0.0
+    outage_spell: float = 0.0
+    outage_schedule: list[Any] | None = None
     transform: str = "identity"
 
 
@@ -77,6 +87,43 @@ def _check(c: NodeChecks, truth) -> None:
     if c.node.error_factors is not None:
         _check_error_factors(c, truth)
     _check_correlation(c, truth, c.node)
+    _check_outages(c, truth)
+
+
+def station_count(node, resolved: int) -> int:
+    """The network's number of stations."""
+    return len(node.stations) if node.stations is not None else -(-resolved // int(node.stride))
+
+
+def _check_outages(c: NodeChecks, truth) -> None:
+    q = c.in_range("outage_probability", 0.0, 1.0, "a probability from 0 to 1")
+    spell = c.real("outage_spell", "0 (outages drawn afresh every cycle) or a mean spell >= 1 cycle",
+                   minimum=0.0, strict=False)
+    if spell != 0 and (spell < 1 or (q < 1 and spell < q / (1 - q))):
+        least = max(1.0, q / (1 - q)) if q < 1 else 1.0
+        c.fail("outage_spell", spell, f"0, or at least {least:g} cycles: a station out a share {q:g} of the time "
+                                      "cannot have shorter spells")
+    blocks = c.node.outage_schedule
+    if blocks is None:
+        return
+    count = station_count(c.node, truth.resolved)
+    form = ("a list of blocks {first_cycle: k1, last_cycle: k2, stations: [numbers]}, 1 <= k1 <= k2, "
+            f"station numbers from 0 to {count - 1}")
+    for block in blocks:
+        if not hasattr(block, "keys") or set(block.keys()) != {"first_cycle", "last_cycle", "stations"}:
+            c.fail("outage_schedule", _shown(blocks), form)
+        first, last, stations = block["first_cycle"], block["last_cycle"], block["stations"]
+        whole = lambda v: isinstance(v, int) and not isinstance(v, bool)
+        if not (whole(first) and whole(last) and 1 <= first <= last):
+            c.fail("outage_schedule", _shown(blocks), form)
+        if not hasattr(stations, "__len__") or isinstance(stations, str) or not stations or \
+                not all(whole(i) and 0 <= i < count for i in stations):
+            c.fail("outage_schedule", _shown(blocks), form)
+
+
+def _shown(value) -> str:
+    plain = OmegaConf.to_container(value) if OmegaConf.is_config(value) else value
+    return str(plain).replace("'", "").replace(" ", "")
 
 
 def _check_correlation(c: NodeChecks, truth, network) -> None:
@@ -146,7 +193,7 @@ def _numbers(c: NodeChecks, key: str) -> list:
 def _check_error_factors(c: NodeChecks, truth) -> None:
     factors = _numbers(c, "error_factors")
     shown = "[" + ",".join(f"{f:g}" for f in factors) + "]"
-    count = len(c.node.stations) if c.node.stations is not None else -(-truth.resolved // int(c.node.stride))
+    count = station_count(c.node, truth.resolved)
     if len(factors) != count:
         c.fail("error_factors", shown, f"one factor per station: {count} here, got {len(factors)}")
     for f in factors:
@@ -180,6 +227,10 @@ def _build(node, resolved: int):
         operator = at_stations(resolved, list(node.stations), str(node.transform))
     if float(node.get("correlation_length", 0.0)) > 0:
         operator = operator._replace(correlation_shape=str(node.correlation_shape))
+    blocks = node.get("outage_schedule")
+    if float(node.get("outage_probability", 0.0)) > 0 or blocks:
+        plain = OmegaConf.to_container(blocks) if OmegaConf.is_config(blocks) else blocks
+        operator = operator._replace(outages=True, schedule=outage_schedule(plain, operator.size))
     if node.error_factors is None:
         return operator
     return operator._replace(error_factors=np.asarray(list(node.error_factors), dtype=np.float64))
@@ -190,5 +241,5 @@ SPEC = NetworkSpec(
     schema=ObservationConfig,
     build=_build,
     check=_check,
-    traced=("error_std", "correlation_length"),
+    traced=("error_std", "correlation_length", "outage_probability", "outage_spell"),
 )

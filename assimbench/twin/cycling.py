@@ -18,6 +18,7 @@ never by the chunk, so results do not depend on the chunk length:
     filter         fold_in(fold_in(r, 3), k)   filter randomness at cycle k (0 for init)
     diagnostics    fold_in(fold_in(r, 4), k)   noise of the observation rank histogram
     model error    fold_in(fold_in(r, 5), k)   additive noise of the truth (when switched on)
+    outages        fold_in(fold_in(r, 6), k)   stations out at cycle k (k = 0: before the first)
 
 Truth and observations depend on (seed, replicate, model, observation
 settings, truth model error) alone, so every filter and every setting run on a
@@ -40,6 +41,7 @@ from assimbench.integrators import make_model_flow
 from assimbench.io.provenance import content_hash
 from assimbench.models.base import Model
 from assimbench.observations.operators import ObservationOperator
+from assimbench.observations.outages import first_outages, next_outages, scheduled
 from assimbench.twin.diagnostics import (
     ensemble_mean_and_spread,
     make_cycle_diagnostics,
@@ -102,6 +104,7 @@ class CycleCarry(NamedTuple):
     truth: jax.Array  # (n,) every variable of the truth model
     filter_state: tuple  # the filter's NamedTuple state
     recent_truth: jax.Array  # (K, r) the resolved truth of the K cycles before, newest first (K = smoother lag)
+    outages: jax.Array | None = None  # (p,) bool, the stations out at the last cycle (None: a network without outages)
 
 
 def replicate_keys(seed: int, replicates: int) -> jax.Array:
@@ -139,15 +142,19 @@ def make_start(setup: TwinSetup, batched_settings: bool = False):
         filter_key = jax.random.fold_in(jax.random.fold_in(rkey, 3), 0)
         # Before cycle K + 1 the smoother's missing earlier states are the initial time's.
         recent = jnp.broadcast_to(truth[: model.resolved_size], (setup.smoother_lag, model.resolved_size))
+        outages = None
+        if setup.operator.outages:
+            key = jax.random.fold_in(jax.random.fold_in(rkey, 6), 0)
+            outages = first_outages(key, settings["observation"], setup.operator.size)
         return CycleCarry(truth=truth, filter_state=setup.filter.init(filter_key, ensemble, settings),
-                          recent_truth=recent)
+                          recent_truth=recent, outages=outages)
 
     return jax.jit(jax.vmap(start_one, in_axes=(0, 0 if batched_settings else None)))
 
 
 def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycle: int, length: int,
                      truth_noise: bool = False):
-    """Return ``truth_chunk(truth, rkey, first_cycle, settings) -> (truth_end, truths, ys)``.
+    """Return ``truth_chunk(truth, outages, rkey, first_cycle, settings) -> (truth_end, outages_end, truths, ys)``.
 
     Integrates the truth over ``length`` cycles from ``truth`` (n,) and
     observes it: y_k = h(x_k) + error_std * e_k, e_k ~ N(0, I) drawn from
@@ -155,24 +162,34 @@ def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycl
     networks share the noise of their common stations). With ``truth_noise``
     the truth carries additive model error, x_k = M(x_{k-1}) + q eta_k with
     q = settings["truth_noise_std"] and eta_k ~ N(0, I) from
-    fold_in(fold_in(rkey, 5), k). truths: (length, r), the r resolved
-    variables (the ones scored); ys: (length, p). Depends on nothing of the filter.
+    fold_in(fold_in(rkey, 5), k). On a network with outages, ``outages`` (p,)
+    are the stations out before the chunk; at cycle k the next draw from
+    fold_in(fold_in(rkey, 6), k), with the scheduled ones, puts NaN in y_k
+    (:mod:`assimbench.observations.outages`; None passes through otherwise).
+    truths: (length, r), the r resolved variables (the ones scored); ys:
+    (length, p). Depends on nothing of the filter.
     """
     flow = make_model_flow(model, steps_per_cycle)
     resolved = model.resolved_size
 
-    def truth_chunk(truth, rkey, first_cycle, settings):
+    def truth_chunk(truth, outages, rkey, first_cycle, settings):
         obs_key, noise_key = jax.random.fold_in(rkey, 1), jax.random.fold_in(rkey, 5)
+        outage_key = jax.random.fold_in(rkey, 6)
 
-        def step(x, k):
+        def step(carry, k):
+            x, out = carry
             x = flow(x, settings["model"])
             if truth_noise:
                 x = x + settings["truth_noise_std"] * jax.random.normal(jax.random.fold_in(noise_key, k), x.shape)
             noise = operator.standard_noise(jax.random.fold_in(obs_key, k), resolved)
-            return x, (x[:resolved], operator(x) + operator.noise(noise, settings))
+            y = operator(x) + operator.noise(noise, settings)
+            if operator.outages:
+                out = next_outages(out, jax.random.fold_in(outage_key, k), settings["observation"])
+                y = jnp.where(out | scheduled(operator.schedule, k, operator.size), jnp.nan, y)
+            return (x, out), (x[:resolved], y)
 
-        truth_end, (truths, ys) = jax.lax.scan(step, truth, first_cycle + jnp.arange(length))
-        return truth_end, truths, ys
+        (truth_end, outages_end), (truths, ys) = jax.lax.scan(step, (truth, outages), first_cycle + jnp.arange(length))
+        return truth_end, outages_end, truths, ys
 
     return truth_chunk
 
@@ -245,14 +262,15 @@ def make_chunk(setup: TwinSetup, length: int, batched_settings: bool = False):
     """
     filt = setup.filter
     truth_chunk = make_truth_chunk(setup.model, setup.operator, setup.steps_per_cycle, length, setup.truth_noise)
-    catalogue = series_catalogue(setup.diagnostics, filt.members, setup.smoother_lag)
+    catalogue = series_catalogue(setup.diagnostics, filt.members, setup.smoother_lag, setup.operator.outages)
     scalar_names = sorted(name for name, series in catalogue.items() if series.extra_dim is None)
     cycle = make_cycle(setup, scalar_names)
 
     def chunk_one(carry, rkey, first_cycle, settings):
         filter_key = jax.random.fold_in(rkey, 3)
         diagnostic_key = jax.random.fold_in(rkey, 4)
-        truth_end, truths, observations = truth_chunk(carry.truth, rkey, first_cycle, settings)
+        truth_end, outages_end, truths, observations = truth_chunk(carry.truth, carry.outages, rkey, first_cycle,
+                                                                   settings)
         cycles = first_cycle + jnp.arange(length)
         if "rank_histogram" in setup.diagnostics:
             # One batched draw per chunk is cheaper than a small draw per cycle; still keyed by
@@ -270,6 +288,6 @@ def make_chunk(setup: TwinSetup, length: int, batched_settings: bool = False):
             series["truth"] = truths
         if "observations" in setup.fields:
             series["observations"] = observations
-        return CycleCarry(truth=truth_end, filter_state=state_end, recent_truth=recent_end), series
+        return CycleCarry(truth=truth_end, filter_state=state_end, recent_truth=recent_end, outages=outages_end), series
 
     return jax.jit(jax.vmap(chunk_one, in_axes=(0, 0, None, 0 if batched_settings else None)))

@@ -23,7 +23,24 @@ import numpy as np
 
 # Optional groups of series; the four RMSE/spread series are always stored.
 OPTIONAL = ("spread_skill", "crps", "rank_histogram", "innovation", "desroziers", "ess", "increment", "inflation",
-            "iterations")
+            "iterations", "by_station")
+
+# Groups computed only when asked for by name (diagnostics=[...]): they store a station axis per cycle.
+OPT_IN = ("by_station",)
+
+# The by_station group's per-cycle sums (station axis), and the per-station time means made from them
+# after burn-in (each sum over the cycles the station reported, divided by their number).
+STATION_SUMS = {
+    "station_reports": "1 where the station reported this cycle, else 0",
+    "station_innovation": "d_ob = y - h(forecast mean) at each station (0 where out)",
+    "station_innovation_square": "d_ob^2 at each station (0 where out)",
+    "station_desroziers_r": "d_oa d_ob at each station, d_oa = y - h(analysis mean) (0 where out)",
+}
+STATION_MEANS = {
+    "station_innovation": "station_innovation_mean",
+    "station_innovation_square": "station_desroziers_total",
+    "station_desroziers_r": "station_desroziers_r",
+}
 
 
 class Series(NamedTuple):
@@ -34,9 +51,10 @@ class Series(NamedTuple):
     extra_dim: str | None = None  # e.g. "rank" for rank histograms
 
 
-def series_catalogue(groups, members: int, smoother_lag: int = 0) -> dict:
-    """name -> Series for the always-stored series, the chosen optional groups and, with a fixed-lag
-    smoother, the smoothed errors at lags 1 .. smoother_lag."""
+def series_catalogue(groups, members: int, smoother_lag: int = 0, outages: bool = False) -> dict:
+    """name -> Series for the always-stored series, the chosen optional groups, with a fixed-lag
+    smoother the smoothed errors at lags 1 .. smoother_lag, and on a network with ``outages`` the
+    number of stations that reported."""
     out = {
         "rmse_forecast": Series("RMSE of the forecast ensemble mean against the truth", "state units"),
         "rmse_analysis": Series("RMSE of the analysis ensemble mean against the truth", "state units"),
@@ -71,6 +89,12 @@ def series_catalogue(groups, members: int, smoother_lag: int = 0) -> dict:
         out["model_integrations"] = Series(
             "forecast-model integrations this cycle, in member-intervals (one member over one analysis interval)",
             "member-intervals")
+    if "by_station" in groups:
+        for name, meaning in STATION_SUMS.items():
+            out[name] = Series(meaning, "1" if name == "station_reports" else "observation units"
+                               + ("^2" if name.endswith(("square", "_r")) else ""), "station")
+    if outages:
+        out["stations_seen"] = Series("stations that reported this cycle (the others were out)", "stations")
     if smoother_lag:
         out["rmse_smoothed"] = Series("RMSE of the smoothed ensemble mean of the cycle `lag` cycles before, against "
                                       "its truth", "state units", "lag")
@@ -84,8 +108,8 @@ def series_catalogue(groups, members: int, smoother_lag: int = 0) -> dict:
 def available_groups(members: int, weighted: bool, reports_inflation: bool = False, iterative: bool = False) -> tuple:
     """The optional groups a filter of this kind can give."""
     if members == 1:
-        return ("desroziers", "increment")
-    groups = ["spread_skill", "crps", "innovation", "desroziers", "increment"]
+        return ("desroziers", "increment", "by_station")
+    groups = ["spread_skill", "crps", "innovation", "desroziers", "increment", "by_station"]
     groups += ["ess"] if weighted else ["rank_histogram"]
     groups += ["inflation"] if reports_inflation else []
     groups += ["iterations"] if iterative else []
@@ -178,15 +202,19 @@ def rank_perturbations(key: jax.Array, shape: tuple) -> jax.Array:
     return (np.float32(np.sqrt(2.0)) * jax.scipy.special.erfinv(2.0 * uniform - 1.0)).reshape(shape)
 
 
-def rank_counts(members: jax.Array, verifying: jax.Array) -> jax.Array:
+def rank_counts(members: jax.Array, verifying: jax.Array, counted=None) -> jax.Array:
     """Counts over variables of the rank of ``verifying`` in the ensemble: (N + 1,) int32.
 
     Rank r = number of members strictly below the verifying value (Hamill 2001,
-    Mon. Wea. Rev. 129, sec. 2); members (N, m), verifying (m,).
+    Mon. Wea. Rev. 129, sec. 2); members (N, m), verifying (m,); ``counted`` (m,) bool
+    leaves the other variables out (None: all counted).
     """
     ranks = jnp.sum(members < verifying, axis=0)
     # A one-hot compare and sum, not a scatter: it fuses into one small loop.
-    return jnp.sum(ranks[:, None] == jnp.arange(members.shape[0] + 1)[None, :], axis=0, dtype=jnp.int32)
+    hits = ranks[:, None] == jnp.arange(members.shape[0] + 1)[None, :]
+    if counted is not None:
+        hits = hits & counted[:, None]
+    return jnp.sum(hits, axis=0, dtype=jnp.int32)
 
 
 def make_cycle_diagnostics(groups, operator, weighted: bool):
@@ -215,24 +243,38 @@ def make_cycle_diagnostics(groups, operator, weighted: bool):
                 weights = normalised_weights(state) if weighted else None
                 out[f"crps_{when}"], out[f"crps_fair_{when}"] = ensemble_crps(state.members, weights, truth)
         error_std = operator.error_std_of(settings)
+        seen, mean = None, jnp.mean
+        if operator.outages:  # a missing station (NaN in y) is left out of every station mean
+            seen = jnp.isfinite(y)
+            y = jnp.where(seen, y, 0.0)
+            out["stations_seen"] = jnp.sum(seen).astype(jnp.float64)
+            mean = lambda v: jnp.sum(jnp.where(seen, v, 0.0)) / jnp.maximum(jnp.sum(seen), 1)
         if "rank_histogram" in groups:
             out["rank_truth_forecast"] = rank_counts(forecast.members, truth)
             noisy = operator(forecast.members) + jax.vmap(lambda e: operator.noise(e, settings))(rank_noise)
-            out["rank_observation_forecast"] = rank_counts(noisy, y)
-        needs_innovations = "innovation" in groups or "desroziers" in groups
+            out["rank_observation_forecast"] = rank_counts(noisy, y, seen)
+        needs_innovations = "innovation" in groups or "desroziers" in groups or "by_station" in groups
         if needs_innovations:
             obs_f = operator(forecast.members)
             w_f = normalised_weights(forecast)
             d_ob = y - w_f @ obs_f
         if "innovation" in groups:
             variance = w_f @ (obs_f - w_f @ obs_f) ** 2 / (1.0 - jnp.sum(w_f**2))
-            out["innovation_mean"] = jnp.mean(d_ob)
-            out["innovation_ratio"] = jnp.mean(d_ob**2) / (jnp.mean(variance) + jnp.mean(error_std**2))
-        if "desroziers" in groups:
+            out["innovation_mean"] = mean(d_ob)
+            noise = jnp.mean(error_std**2) if seen is None else mean(jnp.broadcast_to(error_std**2, y.shape))
+            out["innovation_ratio"] = mean(d_ob**2) / (mean(variance) + noise)
+        if "desroziers" in groups or "by_station" in groups:
             d_oa = y - normalised_weights(analysis) @ operator(analysis.members)
-            out["desroziers_r"] = jnp.mean(d_oa * d_ob)
-            out["desroziers_hbht"] = jnp.mean((d_ob - d_oa) * d_ob)
-            out["desroziers_total"] = jnp.mean(d_ob * d_ob)
+        if "by_station" in groups:
+            reported = jnp.ones_like(y) if seen is None else seen.astype(jnp.float64)
+            out["station_reports"] = reported
+            out["station_innovation"] = reported * d_ob
+            out["station_innovation_square"] = reported * d_ob * d_ob
+            out["station_desroziers_r"] = reported * d_oa * d_ob
+        if "desroziers" in groups:
+            out["desroziers_r"] = mean(d_oa * d_ob)
+            out["desroziers_hbht"] = mean((d_ob - d_oa) * d_ob)
+            out["desroziers_total"] = mean(d_ob * d_ob)
         if "ess" in groups:
             out["ess"] = info["ess"]
         if "inflation" in groups:

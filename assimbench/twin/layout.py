@@ -19,13 +19,14 @@ def layouts_of(setup: TwinSetup) -> tuple:
     """(layouts, coordinates) of every dataset this setup stores."""
     members = setup.filter.members
     layouts = {}
-    for name, series in series_catalogue(setup.diagnostics, members, setup.smoother_lag).items():
+    for name, series in series_catalogue(setup.diagnostics, members, setup.smoother_lag, setup.operator.outages).items():
         if series.extra_dim is None:
             layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle"))
         elif series.extra_dim == "lag":
             layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle", "lag"))
-        else:
-            layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle", series.extra_dim), np.int32)
+        else:  # rank counts are integers; per-station sums are not
+            kind = np.int32 if series.extra_dim == "rank" else np.float64
+            layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle", series.extra_dim), kind)
     layouts.update({name: FIELD_LAYOUTS[name] for name in setup.fields})
     coordinates = {
         "variable": np.arange(setup.model.resolved_size),

@@ -22,6 +22,7 @@ from assimbench.io.result_writer import ResultWriter
 from assimbench.io.results import Result
 from assimbench.twin.block_workers import BlockWorkers, worker_count
 from assimbench.twin.cycling import make_chunk, make_start, replicate_keys
+from assimbench.twin.diagnostics import STATION_MEANS, STATION_SUMS
 from assimbench.twin.summaries import TimeMeans, update_lost_runs
 
 
@@ -209,6 +210,17 @@ def _summaries(plan, means: MeansSink, scalar_names: list, batch: Batch) -> tupl
     return summary, per_replicate
 
 
+def station_means(means, kept_cycles: int, batch) -> dict:
+    """The by_station group's time means after burn-in, each (replicates, stations) (with lanes, a
+    leading lane axis): every sum over the cycles a station reported divided by their number, and
+    ``station_reports``, the share of the cycles it reported (NaN for a station that never did)."""
+    reports = means.totals("station_reports")
+    counted = np.where(reports > 0, reports, np.nan)
+    out = {"station_reports": batch.split(reports / kept_cycles)}
+    out.update({mean: batch.split(means.totals(total) / counted) for total, mean in STATION_MEANS.items()})
+    return out
+
+
 def run_plan(plan, output: str | None = None, progress: Callable | None = None, keep_series: bool = True,
              started: float | None = None) -> Result:
     """Run a plan; write ``output`` (HDF5) if given. ``started``: when the caller began (for the
@@ -218,6 +230,7 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
     scalar_names = [n for n, lay in plan.layouts.items() if lay.dims == ("replicate", "cycle")]
     count_names = [n for n, lay in plan.layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "rank"]
     lag_names = [n for n, lay in plan.layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "lag"]
+    station_names = [n for n in plan.layouts if n in STATION_SUMS]
     lagged_means = [f"{n}_lag{lag}" for n in lag_names for lag in plan.coordinates.get("lag", ())]
     shares = {"iterations": plan.choice.filter.step_counts(plan.config.filter)} if "iterations" in scalar_names else {}
     share_means = [f"{n}_share{value}" for n, values in shares.items() for value in values]
@@ -225,7 +238,7 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
     workers = worker_count(plan.workers, plan.lanes * plan.replicates, plan.cycles)
     compile_seconds, outputs = _in_workers(plan, length, workers) if workers > 1 else _in_process(plan, length)
     startup_seconds = time.perf_counter() - started
-    means = MeansSink(plan, scalar_names + count_names, keep_series, tuple(lag_names), shares)
+    means = MeansSink(plan, scalar_names + count_names + station_names, keep_series, tuple(lag_names), shares)
     monitor = DivergenceMonitor(plan, scalar_names)
     sinks = [means, monitor]
     writer = WriterSink(plan, output, batch) if output is not None else None
@@ -237,6 +250,8 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
             for sink in sinks:
                 sink.add(piece)
         summary, per_replicate = _summaries(plan, means, scalar_names + lagged_means + share_means, batch)
+        if station_names:
+            per_replicate.update(station_means(means.means, plan.cycles - plan.burn_in, batch))
         first_bad = batch.split(monitor.first_bad)
         finish = {
             "diverged": bool(np.any(first_bad >= 0)),

@@ -53,16 +53,22 @@ class AdaptiveState(NamedTuple):
     rho: jax.Array
 
 
-def update_inflation(rho_b, obs_members, y, error_var, prior_variance, local=None):
+def update_inflation(rho_b, obs_members, y, error_var, prior_variance, local=None, seen=None):
     """(rho_a before clipping) from the prior ``rho_b`` and this cycle's innovations (equations above).
 
     obs_members (N, p) uninflated forecast members in observation space; y (p,);
     error_var the scalar r (or one per station, whose sum replaces p r); prior_variance v_b. Global form: rho_b scalar,
     ``local`` None. Local form: rho_b (n,) and ``local`` = (index, weight),
     each (n, K): the stations each grid point sees and their localization
-    weights (0 for padding), as the LETKF's observation windows.
+    weights (0 for padding), as the LETKF's observation windows. ``seen`` (p,) bool: the stations that
+    reported this cycle (None: all); a missing one (0 in y and obs_members) is left out of every sum.
     """
     p = y.shape[0]
+    if seen is not None:
+        p = jnp.sum(seen)
+        error_var = jnp.where(seen, error_var, 0.0)
+        if local is not None:
+            local = (local[0], local[1] * seen[local[0]])
     d = y - obs_members.mean(axis=0)
     variance = jnp.var(obs_members, axis=0, ddof=1)  # s_k^2, (p,)
     if local is None:
@@ -77,7 +83,10 @@ def update_inflation(rho_b, obs_members, y, error_var, prior_variance, local=Non
         noise = jnp.sum(error_var) if local is None else jnp.sum(weight * error_var[index], axis=1)
     rho_o = (departure - noise) / signal
     v_o = 2.0 / count * ((rho_b * signal + noise) / signal) ** 2
-    return (v_o * rho_b + prior_variance * rho_o) / (v_o + prior_variance)
+    updated = (v_o * rho_b + prior_variance * rho_o) / (v_o + prior_variance)
+    if seen is None:
+        return updated
+    return jnp.where(count > 0, updated, rho_b)  # no station seen: nothing to learn from
 
 
 def adaptive_ensemble_filter(name: str, members: int, update, operator, pieces=frozenset(),
@@ -101,7 +110,7 @@ def adaptive_ensemble_filter(name: str, members: int, update, operator, pieces=f
         white = operator.whiten(settings, y)  # a correlated R: whitened innovations, tapered by station
         local = None if local_windows is None else local_windows(settings)
         rho = update_inflation(state.rho, white.observe(state.members), white.obs, white.variance,
-                               f["adaptive_std"] ** 2, local)
+                               f["adaptive_std"] ** 2, local, white.seen)
         rho = jnp.clip(rho, f["adaptive_min"] ** 2, f["adaptive_max"] ** 2)
         factor = jnp.sqrt(rho)  # scalar, or (n,): multiplies the anomalies of each variable
         return rho, {**settings, "filter": {**f, "inflation": factor}}

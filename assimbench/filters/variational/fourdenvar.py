@@ -150,4 +150,5 @@ SPEC = FilterSpec(
     traced=HYBRID_TRACED,
     widest=WIDEST + ("radius",),
     climatology=True,
+    takes_outages=False,
 )
