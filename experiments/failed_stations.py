@@ -105,15 +105,19 @@ def main() -> int:
                 axis.axvspan(a - 0.5, b + 0.5, color="0.88", lw=0)
     for name, colour in zip(networks, ("tab:blue", "tab:red", "tab:green")):
         top.plot(cycles, series[name][0, shown], color=colour, lw=1.2, label=name)
-        if name != "all reporting":
-            bottom.plot(cycles, np.asarray(runs[name].series["stations_seen"])[0, shown], color=colour, lw=1.2)
+        seen = (np.asarray(runs[name].series["stations_seen"])[0, shown] if name != "all reporting"
+                else np.full(cycles.size, 40.0))
+        bottom.plot(cycles, seen, color=colour, lw=1.2)
     top.set_ylabel("analysis RMSE")
-    top.set_title("Coastal ring, replicate 1: grey bands are the half ring's scheduled outages", fontsize=10)
-    top.legend(loc="upper right", fontsize=8, frameon=False)
+    top.set_xlim(cycles[0] - 0.5, cycles[-1] + 0.5)
+    top.set_ylim(0, None)
+    figure.suptitle("Coastal ring, replicate 1: grey bands are the half ring's scheduled outages", fontsize=10)
+    figure.legend(*top.get_legend_handles_labels(), loc="upper center", ncol=3, fontsize=8, frameon=False,
+                  bbox_to_anchor=(0.5, 0.955))
     bottom.set_ylabel("stations reporting")
-    bottom.set_ylim(0, 42)
+    bottom.set_ylim(0, 44)
     bottom.set_xlabel("cycle (6 hours each)")
-    figure.tight_layout()
+    figure.tight_layout(rect=(0, 0, 1, 0.93))
     path = os.path.join(args.out, "failed_stations.png")
     figure.savefig(path + ".tmp.png", dpi=110)
     os.replace(path + ".tmp.png", path)  # never a half-written figure under the final name

@@ -18,6 +18,7 @@ from assimbench.config.schema import ExperimentBase, SmootherConfig, StoreConfig
 from assimbench.config.spec import FilterSpec, ModelFacts
 from assimbench.integrators import steps_per_cycle
 from assimbench.observations.networks import AssumedErrorsConfig, check_assumed
+from assimbench.observations.station_rules import expand_station_rules
 from assimbench.twin.diagnostics import OPTIONAL, available_groups
 
 
@@ -215,6 +216,7 @@ def check(cfg: DictConfig) -> Choice:
     forecast = _chosen(cat.forecast_models, cfg.forecast_model.name, "forecast_model.name", "forecast_model")
     _check_known_keys(cfg, {"model": model, "forecast_model": forecast, "observation": cat.network,
                             "filter": filter_spec})
+    expand_station_rules(cfg, truth.resolved)
     interval = NodeChecks(cfg.observation, "observation").real("interval", "a finite model time > 0", minimum=0.0)
     _check_interval(interval, float(cfg.model.dt), "model.dt")
     cat.network.check(NodeChecks(cfg.observation, "observation"), truth)

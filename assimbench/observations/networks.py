@@ -34,7 +34,12 @@ class ObservationConfig:
     ``model.dt``. The default is the demo's: every station of the ring every
     six hours (0.05 model time units) with unit error. ``stations``, a list of
     grid positions in [0, n) (fractions between grid points on a ring), replaces
-    the stride. ``error_factors``, one per station, make the errors unequal:
+    the stride; so do ``random_stations`` (a count drawn once from
+    ``subset_seed``), ``block`` ([first, count] consecutive grid points) and
+    ``station_file`` (CSV or YAML of position, error_std), each written out as
+    the station list before anything reads it
+    (:mod:`assimbench.observations.station_rules`). ``error_factors``, one per
+    station, make the errors unequal:
     station i's standard deviation is error_std x error_factors[i].
     ``correlation_length`` L > 0 (grid units) correlates the errors,
     R_ij = sigma_i sigma_j rho(d_ij / L) with d_ij the ring distance and rho
@@ -49,6 +54,10 @@ class ObservationConfig:
     interval: float = 0.05
     stride: int = 1
     stations: list[float] | None = None
+    random_stations: int | None = None
+    subset_seed: int = 0
+    block: list[int] | None = None
+    station_file: str | None = None
     error_factors: list[float] | None = None
     error_std: float = 1.0
     correlation_length: float = 0.0
