@@ -179,21 +179,6 @@ def _check_lanes(cfg, choice: Choice, cat: Catalogue) -> None:
                 raise type(err)(f"lanes.{err}") from None
 
 
-def _check_outages_taken(cfg, spec: FilterSpec, cat: Catalogue) -> None:
-    """A network with outages (here or in a lane) needs a filter that takes them."""
-    if spec.takes_outages:
-        return
-    q = cfg.observation.outage_probability
-    lanes = cfg.get("lanes", {}).get("observation", {}).get("outage_probability") if "lanes" in cfg else None
-    if not q and not any(lanes or ()) and not cfg.observation.outage_schedule:
-        return
-    able = ", ".join(name for name, other in cat.filters.items() if other.takes_outages)
-    key, value = ("observation.outage_probability", q) if q or not cfg.observation.outage_schedule else (
-        "observation.outage_schedule", "[...]")
-    fail(key, value, f"no outages with filter {spec.name}: its window holds earlier cycles' observations, "
-                     f"whose missing stations it cannot mask yet; filters that take outages: {able}")
-
-
 def _check_known_keys(cfg, specs: dict) -> None:
     """Every key must be one of its node's schema (``+filter.foo=1`` adds a key Hydra accepts)."""
     schemas = {"": ExperimentBase, "store": StoreConfig, "smoother": SmootherConfig, "assumed": AssumedErrorsConfig, **{section: spec.schema for section, spec in specs.items()}}
@@ -223,7 +208,6 @@ def check(cfg: DictConfig) -> Choice:
     check_assumed(cfg.assumed, cfg.observation, truth)
     forecaster = _forecaster(cfg, cat, forecast, truth, interval)
     filter_spec.check(NodeChecks(cfg.filter, "filter"), forecaster)
-    _check_outages_taken(cfg, filter_spec, cat)
     _check_run(cfg)
     choice = Choice(model, forecast, filter_spec, truth, forecaster, given_lanes(cfg, cat.lane_keys()))
     _check_diagnostics(cfg, choice)

@@ -125,9 +125,7 @@ class FilterSpec:
     kalman_exact: on a linear Gaussian problem, without localization and
     inflation, one analysis gives the Kalman filter's mean and covariance from
     the forecast ensemble's sample mean and covariance (tested for every filter
-    that declares it); takes_outages: the filter assimilates a cycle with
-    missing stations (a window filter keeps earlier cycles' observations
-    and refuses outages).
+    that declares it).
     """
 
     name: str
@@ -147,7 +145,6 @@ class FilterSpec:
     climatology: bool = False
     assimilates: bool = True
     kalman_exact: bool = False
-    takes_outages: bool = True
 
 
 __all__ = ["DerivedModelSpec", "FilterContext", "FilterSpec", "ModelSpec", "NetworkSpec", "ModelFacts", "NodeChecks",

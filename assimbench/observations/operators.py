@@ -64,6 +64,23 @@ class Whitened(NamedTuple):
     seen: jax.Array | None = None
 
 
+class WindowFrame(NamedTuple):
+    """A window's observations (W, p) as a 4D method assimilates them: ``obs`` in the frame, R's
+    diagonal there (``variance``, ``std``), and ``apply`` taking any (W, ..., p) array of predicted
+    observations (or their sensitivities) to the frame, time by time: missing stations (NaN in the
+    window's y) masked, and with a correlated R whitened by the Cholesky factor of that time's R."""
+
+    obs: jax.Array
+    variance: object
+    std: object
+    apply: Callable
+
+
+def _by_time(mask, v):
+    """``mask`` (W, p) shaped to broadcast against v (W, ..., p)."""
+    return mask.reshape(mask.shape[:1] + (1,) * (v.ndim - 2) + mask.shape[1:])
+
+
 class ObservationOperator(NamedTuple):
     """Observe the state at the stations' positions through ``transform``.
 
@@ -145,6 +162,11 @@ class ObservationOperator(NamedTuple):
             return self.error_std_of(settings) * standard
         return self.error_root(settings) @ standard
 
+    def window_frame(self, settings, obs) -> WindowFrame:
+        """The frame a 4D method assimilates a window's observations ``obs`` (W, p) in: R's diagonal as it
+        is, or whitened by R's Cholesky factor; a missing station masked at its own time."""
+        return _window_frame(self, settings, obs)
+
     def whiten(self, settings, y) -> Whitened:
         """The frame a filter assimilates ``y`` (p,) in (:class:`Whitened`). Independent errors: h and y
         unchanged with R's diagonal (no arithmetic added: the results are those of a diagonal R).
@@ -200,6 +222,34 @@ class ObservationOperator(NamedTuple):
         # (1 - a) x_i + a x_(i+1): exactly x_i for a station on a grid point.
         at_right = x[..., (self.indices + 1) % (self.limit or x.shape[-1])]
         return TRANSFORMS[self.transform]((1.0 - self.fractions) * at_left + self.fractions * at_right)
+
+
+def _window_frame(operator, settings, obs) -> WindowFrame:
+    """:meth:`ObservationOperator.window_frame` (here to keep the class short)."""
+    seen = None
+    if operator.outages:
+        seen = jnp.isfinite(obs)
+        obs = jnp.where(seen, obs, 0.0)
+    if not operator.correlated:
+        std = operator.error_std_of(settings)
+        if seen is None:
+            return WindowFrame(obs, std**2, std, lambda v: v)
+        return WindowFrame(obs, std**2, std, lambda v: jnp.where(_by_time(seen, v), v, 0.0))
+    covariance = operator.error_covariance(settings)
+    if seen is None:
+        root = jnp.linalg.cholesky(covariance)
+        apply = lambda v: whiten_with(root, v)
+    else:  # one R per time: the block of the stations seen, the others decoupled with unit variance
+        both = seen[:, :, None] & seen[:, None, :]
+        roots = jnp.linalg.cholesky(jnp.where(both, covariance, jnp.eye(operator.size)))  # (W, p, p)
+
+        def apply(v):
+            masked = jnp.where(_by_time(seen, v), v, 0.0)
+            flat = masked.reshape(v.shape[0], -1, v.shape[-1])  # (W, m, p)
+            solved = solve_triangular(roots, jnp.swapaxes(flat, 1, 2), lower=True)  # (W, p, m)
+            return jnp.swapaxes(solved, 1, 2).reshape(v.shape)
+
+    return WindowFrame(apply(obs), 1.0, 1.0, apply)
 
 
 def whiten_with(root, v):

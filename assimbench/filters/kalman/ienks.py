@@ -137,7 +137,7 @@ def forecast_window(ensemble: jax.Array, advance, operator, params, length: int)
 
 def window_search(prior: jax.Array, obs: jax.Array, weights: jax.Array, error_var, advance, operator, params,
                   max_iterations: int, tolerance, variant: str = "transform", bundle_scale=1e-4,
-                  solver: str = "eigh", prior_count: float | None = None):
+                  solver: str = "eigh", prior_count: float | None = None, frame=None):
     """Minimise J(w) by Gauss-Newton in ensemble space (module docstring): (E_0* (N, n), iterations, zeta).
 
     prior: E_0 (N, n), inflation already applied; obs (L, p) and weights (L,)
@@ -146,7 +146,8 @@ def window_search(prior: jax.Array, obs: jax.Array, weights: jax.Array, error_va
     advance(x, params): one analysis interval of the forecast model on members
     (N, n); operator: h on the last axis; prior_count: None for the Gaussian
     prior, c for the finite-size one; iterations (int32): Gauss-Newton steps
-    taken; zeta: the prior's curvature at the minimum (N - 1 for the Gaussian).
+    taken; zeta: the prior's curvature at the minimum (N - 1 for the Gaussian); frame: takes the
+    predicted observations (L, N, p) to the frame ``obs`` is in (masked, whitened; None: as they are).
     """
     members = prior.shape[0]
     floor = members - 1.0
@@ -159,6 +160,8 @@ def window_search(prior: jax.Array, obs: jax.Array, weights: jax.Array, error_va
         w, transform, inverse_transform, count, _, _ = carry
         spread = bundle_scale * anomalies if variant == "bundle" else transform @ anomalies
         _, observed = forecast_window(mean + w @ anomalies + spread, advance, operator, params, obs.shape[0])
+        if frame is not None:
+            observed = frame(observed)
         obs_mean = observed.mean(axis=1)  # (L, p)
         deviations = observed - obs_mean[:, None, :]
         if variant == "bundle":
@@ -231,11 +234,11 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
         del key  # deterministic
         obs, weights = window_obs
         f = settings["filter"]
-        white = operator.whiten(settings, obs)  # the window's observations (W, p) in the filter's frame
+        frame = operator.window_frame(settings, obs)  # the window's observations (W, p) in the filter's frame
         analysed, iterations, zeta = window_search(
-            start, white.obs, weights, white.variance, advance, white.observe,
+            start, frame.obs, weights, frame.variance, advance, operator,
             settings["forecast_model"], max_iterations, f["tolerance"], variant, f["bundle_scale"], solver,
-            prior_count)
+            prior_count, frame.apply if operator.outages or operator.correlated else None)
         return analysed, (iterations, zeta)
 
     inflated_search = with_inflation(search, pieces)
@@ -373,5 +376,4 @@ SPEC = FilterSpec(
     reports_inflation=lambda node: node.prior == "finite_size",
     smoothable=lambda node: int(node.shift) == 1,
     lag_limit=lambda node: int(node.window),
-    takes_outages=False,
 )

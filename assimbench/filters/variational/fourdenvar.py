@@ -62,16 +62,22 @@ from assimbench.localization import radius_of
 from assimbench.models.climatology import climatology
 
 
-def gauss_newton_4denvar(backgrounds, factors, obs, mask, error_var, h, iterations: int):
+def gauss_newton_4denvar(backgrounds, factors, obs, mask, error_var, h, iterations: int, frame=None):
     """The control v (m,) after ``iterations`` Gauss-Newton steps from v = 0 (module docstring);
-    backgrounds (W, n), factors U_j (W, n, m), obs (W, p), mask (W,)."""
+    backgrounds (W, n), factors U_j (W, n, m), obs (W, p), mask (W,); ``frame`` takes (W, ..., p) predicted
+    observations to the window's frame (masked, whitened; obs are in it; None: as they are)."""
     length, size = obs.shape
 
     def step(v, _):
         states = backgrounds + factors @ v
         jacobians = jax.vmap(jax.jacfwd(h))(states)  # (W, p, n)
-        rows = (mask[:, None, None] * (jacobians @ factors)).reshape(length * size, -1)
-        departures = (mask[:, None] * (obs - jax.vmap(h)(states))).reshape(-1) + rows @ v
+        sensitivities = jacobians @ factors  # (W, p, m)
+        predicted = jax.vmap(h)(states)
+        if frame is not None:
+            sensitivities = jnp.swapaxes(frame(jnp.swapaxes(sensitivities, 1, 2)), 1, 2)
+            predicted = frame(predicted)
+        rows = (mask[:, None, None] * sensitivities).reshape(length * size, -1)
+        departures = (mask[:, None] * (obs - predicted)).reshape(-1) + rows @ v
         variances = jnp.broadcast_to(error_var, (length, size)).reshape(-1)
         innovation_cov = rows @ rows.T + jnp.diag(variances)
         return rows.T @ jnp.linalg.solve(innovation_cov, departures), None
@@ -111,8 +117,9 @@ def make_4denvar(model, operator, climate_cov, members: int, window: int, radius
         root = None if radius is None else circulant_taper_root(model.size, f["radius"])
         factors = jax.vmap(lambda a: hybrid_factor(a, climate_factor, f["ensemble_weight"], f["static_scale"],
                                                    root))(anomalies)
-        white = operator.whiten(settings, obs)  # the window's observations (W, p) in the filter's frame
-        v = gauss_newton_4denvar(backgrounds, factors, white.obs, mask, white.variance, white.observe, steps)
+        frame = operator.window_frame(settings, obs)  # the window's observations (W, p) in the filter's frame
+        apply = None if not (operator.outages or operator.correlated) else frame.apply
+        v = gauss_newton_4denvar(backgrounds, factors, frame.obs, mask, frame.variance, operator, steps, apply)
         trajectory = backgrounds + factors @ v
         analysed, info = update_members(key, state.members, y, trajectory[filled - 1], settings)
         return WindowEnsembleState(members=analysed, start=start, shifted=trajectory[0], obs=obs, filled=filled,
@@ -150,5 +157,4 @@ SPEC = FilterSpec(
     traced=HYBRID_TRACED,
     widest=WIDEST + ("radius",),
     climatology=True,
-    takes_outages=False,
 )

@@ -79,8 +79,13 @@ class FourDVarState(NamedTuple):
     filled: jax.Array
 
 
-def window_residuals(v, background, factor, obs, mask, error_std, advance, h, params):
-    """Scaled residuals e(v) (W, p): m_j (h(M_j(x_b + L v)) - y_j) / error_std; factor = L (n, m)."""
+def _unchanged(v):
+    return v
+
+
+def window_residuals(v, background, factor, obs, mask, error_std, advance, h, params, frame=_unchanged):
+    """Scaled residuals e(v) (W, p): m_j (F_j h(M_j(x_b + L v)) - y_j) / error_std; factor = L (n, m); ``frame``
+    takes the predicted observations (W, p) to the window's frame F_j (masked, whitened; obs are in it)."""
     x0 = background + factor @ v
 
     def step(x, _):
@@ -88,7 +93,7 @@ def window_residuals(v, background, factor, obs, mask, error_std, advance, h, pa
         return x, h(x)
 
     _, predicted = jax.lax.scan(step, x0, None, length=obs.shape[0])
-    return mask[:, None] * (predicted - obs) / error_std
+    return mask[:, None] * (frame(predicted) - obs) / error_std
 
 
 def window_cost(v, *args):
@@ -117,9 +122,10 @@ def conjugate_gradients(apply, rhs, iterations: int):
     return x
 
 
-def minimise_window(background, factor, obs, mask, error_std, advance, h, params, iterations, inner_iterations):
+def minimise_window(background, factor, obs, mask, error_std, advance, h, params, iterations, inner_iterations,
+                    frame=_unchanged):
     """v* after the Gauss-Newton-CG iterations (module docstring), starting from v = 0."""
-    args = (background, factor, obs, mask, error_std, advance, h, params)
+    args = (background, factor, obs, mask, error_std, advance, h, params, frame)
 
     def outer(v, _):
         residual = lambda u: window_residuals(u, *args)
@@ -166,9 +172,9 @@ def analyse_window(start, factor, obs, mask, filled, settings, advance, operator
                    window):
     """(analysis at the window's last observation, analysed state one interval after the start)."""
     params = settings["forecast_model"]
-    white = operator.whiten(settings, obs)  # the window's observations (W, p) in the filter's frame
-    v = minimise_window(start, factor, white.obs, mask, white.std, advance, white.observe, params,
-                        iterations, inner_iterations)
+    frame = operator.window_frame(settings, obs)  # the window's observations (W, p) in the filter's frame
+    v = minimise_window(start, factor, frame.obs, mask, frame.std, advance, operator, params,
+                        iterations, inner_iterations, frame.apply)
     x0 = start + factor @ v
     trajectory = jax.lax.scan(lambda x, _: (advance(x, params),) * 2, x0, None, length=window)[1]
     return trajectory[filled - 1], trajectory[0]
@@ -254,5 +260,4 @@ SPEC = FilterSpec(
     traced=HYBRID_TRACED,
     widest=WIDEST + ("radius",),
     climatology=True,
-    takes_outages=False,
 )
