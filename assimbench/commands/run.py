@@ -115,6 +115,9 @@ def settings_line(config: dict, lane_keys=()) -> str:
     lag = int(config.get("smoother", {}).get("lag", 0))
     if lag:
         text += ("; " if text else "") + f"fixed-lag smoother over {lag} cycle{'s' if lag > 1 else ''}"
+    every = int(config.get("analysis_every", 1))
+    if every > 1:
+        text += ("; " if text else "") + f"analyses every {every} cycles (the observations between them unused)"
     return text or "none to tune"
 
 

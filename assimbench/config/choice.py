@@ -179,6 +179,18 @@ def _check_lanes(cfg, choice: Choice, cat: Catalogue) -> None:
                 raise type(err)(f"lanes.{err}") from None
 
 
+def _check_analysis_every(cfg, spec: FilterSpec) -> None:
+    every = NodeChecks(cfg, "").integer("analysis_every", 1, "an integer >= 1 (cycles between analyses)")
+    if every == 1:
+        return
+    if spec.windowed:
+        how = "filter.shift" if "shift" in cfg.filter else "filter.window"
+        fail("analysis_every", every, f"1 with filter {spec.name}: a window method uses every observation time of "
+                                      f"its window (set {how})")
+    if int(cfg.smoother.lag) > 0:
+        fail("analysis_every", every, "1 with a fixed-lag smoother (smoother.lag > 0)")
+
+
 def _check_known_keys(cfg, specs: dict) -> None:
     """Every key must be one of its node's schema (``+filter.foo=1`` adds a key Hydra accepts)."""
     schemas = {"": ExperimentBase, "store": StoreConfig, "smoother": SmootherConfig, "assumed": AssumedErrorsConfig, **{section: spec.schema for section, spec in specs.items()}}
@@ -209,6 +221,7 @@ def check(cfg: DictConfig) -> Choice:
     forecaster = _forecaster(cfg, cat, forecast, truth, interval)
     filter_spec.check(NodeChecks(cfg.filter, "filter"), forecaster)
     _check_run(cfg)
+    _check_analysis_every(cfg, filter_spec)
     choice = Choice(model, forecast, filter_spec, truth, forecaster, given_lanes(cfg, cat.lane_keys()))
     _check_diagnostics(cfg, choice)
     _check_smoother(cfg, choice)

@@ -22,6 +22,7 @@ from assimbench.config.choice import Choice, check
 from assimbench.config.lanes import LaneGrid, hull_values, lane_grid, plain_config, with_values
 from assimbench.config.spec import FilterContext
 from assimbench.filters.smoother import with_fixed_lag
+from assimbench.filters.sparse import every_kth_analysis
 from assimbench.integrators import steps_per_cycle
 from assimbench.io.provenance import provenance
 from assimbench.models.climatology import climate_std
@@ -95,6 +96,8 @@ def build_setup(cfg, choice: Choice) -> TwinSetup:
     filt = choice.filter.build(cfg.filter, FilterContext(forecaster, view, forecast_steps, lag))
     if lag > 0 and filt.analyse_lagged is not None:  # otherwise the filter smooths by itself
         filt = with_fixed_lag(filt, lag)
+    if int(cfg.get("analysis_every", 1)) > 1:
+        filt = every_kth_analysis(filt, int(cfg.analysis_every))
     available = choice.diagnostic_groups(cfg.filter)
     groups = (tuple(g for g in available if g not in OPT_IN) if cfg.diagnostics is None
               else tuple(g for g in available if g in cfg.diagnostics))

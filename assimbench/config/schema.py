@@ -61,7 +61,9 @@ class ExperimentBase:
     filter forecasts with (same: the truth model); truth_noise_std: standard
     deviation of additive model error added to every truth variable after
     each analysis interval (0: none), a model error the forecast model does
-    not know; assumed: the observation errors the filter assumes where
+    not know; analysis_every: the filter analyses at every k-th cycle only,
+    forecasting in between (the other cycles' observations unused; a window
+    method uses them all and refuses it); assumed: the observation errors the filter assumes where
     they differ from the truth's (null keys: the truth's). The defaults are the built-in demo (configs/config.yaml picks
     its components).
     """
@@ -69,6 +71,7 @@ class ExperimentBase:
     model: Any = MISSING
     forecast_model: Any = MISSING
     truth_noise_std: float = 0.0
+    analysis_every: int = 1
     observation: ObservationConfig = field(default_factory=ObservationConfig)
     assumed: AssumedErrorsConfig = field(default_factory=AssumedErrorsConfig)
     filter: Any = MISSING

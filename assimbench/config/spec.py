@@ -125,7 +125,8 @@ class FilterSpec:
     kalman_exact: on a linear Gaussian problem, without localization and
     inflation, one analysis gives the Kalman filter's mean and covariance from
     the forecast ensemble's sample mean and covariance (tested for every filter
-    that declares it).
+    that declares it); windowed: the filter keeps a window of observation
+    times and uses every one of them (it refuses ``analysis_every`` > 1).
     """
 
     name: str
@@ -145,6 +146,7 @@ class FilterSpec:
     climatology: bool = False
     assimilates: bool = True
     kalman_exact: bool = False
+    windowed: bool = False
 
 
 __all__ = ["DerivedModelSpec", "FilterContext", "FilterSpec", "ModelSpec", "NetworkSpec", "ModelFacts", "NodeChecks",

@@ -376,4 +376,5 @@ SPEC = FilterSpec(
     reports_inflation=lambda node: node.prior == "finite_size",
     smoothable=lambda node: int(node.shift) == 1,
     lag_limit=lambda node: int(node.window),
+    windowed=True,
 )

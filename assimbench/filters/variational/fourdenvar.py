@@ -157,4 +157,5 @@ SPEC = FilterSpec(
     traced=HYBRID_TRACED,
     widest=WIDEST + ("radius",),
     climatology=True,
+    windowed=True,
 )
