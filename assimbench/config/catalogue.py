@@ -53,6 +53,7 @@ class Catalogue(NamedTuple):
             "model": union(self.models.values()),
             "forecast_model": union(self.forecast_models.values()),
             "observation": self.network.traced,
+            "assumed": networks.ASSUMED_TRACED,
             "filter": union(self.filters.values()),
         }
 

@@ -17,7 +17,7 @@ from assimbench.config.lanes import COMBINATIONS, check_lane_lists, given_lanes,
 from assimbench.config.schema import ExperimentBase, SmootherConfig, StoreConfig
 from assimbench.config.spec import FilterSpec, ModelFacts
 from assimbench.integrators import steps_per_cycle
-from assimbench.observations.networks import AssumedErrorsConfig, check_assumed
+from assimbench.observations.networks import ASSUMED_TRACED, AssumedErrorsConfig, check_assumed
 from assimbench.observations.station_rules import expand_station_rules
 from assimbench.twin.diagnostics import OPTIONAL, available_groups
 
@@ -141,7 +141,7 @@ def _check_outputs(cfg) -> None:
         fail("output", output, "a file path, or null for no file")
 
 
-def _section_checks(choice: Choice, cat: Catalogue) -> dict:
+def _section_checks(choice: Choice, cat: Catalogue, observation) -> dict:
     """section -> check(node) of the node a lane section varies."""
     return {
         "model": lambda node: choice.model.check(NodeChecks(node, "model")),
@@ -149,6 +149,7 @@ def _section_checks(choice: Choice, cat: Catalogue) -> dict:
                                         if choice.forecast.name in cat.derived
                                         else choice.forecast.check(NodeChecks(node, "forecast_model"))),
         "observation": lambda node: cat.network.check(NodeChecks(node, "observation"), choice.truth),
+        "assumed": lambda node: check_assumed(node, observation, choice.truth),
         "filter": lambda node: choice.filter.check(NodeChecks(node, "filter"), choice.forecaster),
         "": lambda node: NodeChecks(node, "").real("initial_spread", "a finite standard deviation >= 0",
                                                    minimum=0.0, strict=False),
@@ -162,13 +163,14 @@ def _check_lanes(cfg, choice: Choice, cat: Catalogue) -> None:
     if not given:
         return
     traced = {"model": choice.model.traced, "forecast_model": () if choice.forecast.name == "same"
-              else choice.forecast.traced, "observation": cat.network.traced, "filter": choice.filter.traced}
+              else choice.forecast.traced, "observation": cat.network.traced, "assumed": ASSUMED_TRACED,
+              "filter": choice.filter.traced}
     names = {section: f"{section} {cfg[section].name}" if "name" in cfg[section] else section for section in traced}
     forecaster = "model" if choice.forecast.name == "same" else "forecast_model"
     combination = cfg.get("lane_combination", "all")
     check_lane_lists(given, traced, names, forecaster if choice.filter.climatology else None, combination)
     plain = plain_config(cfg)
-    checks = _section_checks(choice, cat)
+    checks = _section_checks(choice, cat, cfg.observation)
     for section, check_node in checks.items():
         lists = [(key, values) for key, values in given if key.rpartition(".")[0] == section]
         for values in lane_rows([v for _, v in lists], combination) if lists else ():

@@ -167,7 +167,8 @@ def resolve(cfg: DictConfig) -> Plan:
     # A correlated lane makes the network's R correlated (a lane of length 0 is then independent), a lane
     # with outages makes the network one with outages (a lane of probability 0 then has none).
     widest = {f"filter.{key}" for key in choice.filter.widest} | {"observation.correlation_length",
-                                                                   "observation.outage_probability"}
+                                                                   "observation.outage_probability",
+                                                                   "assumed.correlation_length"}
     hull = with_values(plain, grid.keys, hull_values(grid, widest)) if grid.keys else plain
     setup = build_setup(hull, choice)
     lanes = [with_values(plain, grid.keys, row) for row in grid.values] if grid.keys else [plain]

@@ -81,6 +81,8 @@ class AssumedErrorsConfig:
 
 
 ASSUMED_KEYS = ("error_std", "correlation_length", "correlation_shape", "error_factors")
+# The assumed keys a lane may sweep (lanes.assumed.error_std=[...]): the filter's traced view of R.
+ASSUMED_TRACED = ("error_std", "correlation_length")
 
 
 def _check(c: NodeChecks, truth) -> None:
@@ -176,8 +178,7 @@ def _merged(assumed, observation):
 
 def assumed_settings(assumed, observation) -> dict:
     """settings["assumed"]: the filter's error_std and correlation_length, each the truth's where null."""
-    return {key: float(observation[key] if assumed[key] is None else assumed[key])
-            for key in ("error_std", "correlation_length")}
+    return {key: float(observation[key] if assumed[key] is None else assumed[key]) for key in ASSUMED_TRACED}
 
 
 def filter_view(operator, assumed, observation):

@@ -20,6 +20,11 @@ SETTING_WORDS = {
     "filter.adaptive": "adaptive inflation",
     "filter.window": "window",
     "observation.error_std": "observation error",
+    "observation.correlation_length": "error correlation length",
+    "observation.outage_probability": "outage share",
+    "observation.outage_spell": "outage spell",
+    "assumed.error_std": "assumed observation error",
+    "assumed.correlation_length": "assumed correlation length",
     "initial_spread": "initial spread",
     "truth_noise_std": "truth model error",
 }

@@ -215,3 +215,19 @@ def test_bad_correlated_networks_are_one_line(overrides, words):
         resolve(compose_config(overrides if "model=lorenz63" in overrides else BASE + overrides))
     message = str(caught.value)
     assert "\n" not in message and all(word in message for word in words), message
+
+
+def test_lanes_sweep_the_filters_assumed_errors_as_single_runs_do():
+    """lanes.assumed.error_std x lanes.assumed.correlation_length: each lane follows the single run with
+    those assumed values to round-off (a batched program sums in another order), on one truth whose
+    errors are correlated; a bad lane value is one line."""
+    common = ["model.size=12", "observation.stride=2", "observation.correlation_length=2", "cycles=40", "burn_in=5",
+              "output=null", "filter=etkf"]
+    laned = assimbench.run(common + ["lanes.assumed.error_std=[0.7,1.4]", "lanes.assumed.correlation_length=[0,2]"])
+    rmse = laned.series["rmse_analysis"]  # (lane, replicate, cycle), the last list fastest
+    for lane, (std, length) in enumerate([(0.7, 0), (0.7, 2), (1.4, 0), (1.4, 2)]):
+        single = assimbench.run(common + [f"assumed.error_std={std}", f"assumed.correlation_length={length}"])
+        np.testing.assert_allclose(rmse[lane, 0], single.series["rmse_analysis"][0], rtol=1e-8, err_msg=str(lane))
+    with pytest.raises(ConfigError) as caught:
+        resolve(compose_config(common + ["lanes.assumed.error_std=[1,0]"]))
+    assert "lanes.assumed.error_std=0" in str(caught.value) and "\n" not in str(caught.value)
