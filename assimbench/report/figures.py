@@ -22,7 +22,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from assimbench.io.atomic import atomic_file
-from assimbench.report.words import describe, setting_word, value_text
+from assimbench.report.words import describe, observation_error_level, setting_word, value_text
 
 OKABE_ITO = {
     "blue": "#0072B2",
@@ -114,11 +114,13 @@ def _observation_error(ax, setting, highest: float = np.inf) -> None:
     config = setting.config
     if config.get("observation.transform", "identity") != "identity" or "observation.error_std" not in config:
         return
-    error = float(config["observation.error_std"])
+    error = observation_error_level(config)
+    rms = ", RMS over the stations" if config.get("observation.error_factors") is not None else ""
     if error <= 1.5 * highest:
-        ax.axhline(error, color=NEUTRAL, lw=0.9, ls=":", label=f"observation error ({error:g})")
+        ax.axhline(error, color=NEUTRAL, lw=0.9, ls=":", label=f"observation error ({error:.4g}{rms})")
     else:
-        ax.plot([], [], color=NEUTRAL, lw=0.9, ls=":", label=f"observation error ({error:g}, above the plotted range)")
+        ax.plot([], [], color=NEUTRAL, lw=0.9, ls=":",
+                label=f"observation error ({error:.4g}{rms}, above the plotted range)")
 
 
 def errors_over_cycles(points: list, path: str, window: int = 20) -> str:
@@ -153,7 +155,7 @@ def errors_over_cycles(points: list, path: str, window: int = 20) -> str:
             ax.legend(fontsize=7.5, loc="upper right")
             shown.append(smooth)
             if best.config.get("observation.transform", "identity") == "identity":
-                shown.append(np.array([float(best.config.get("observation.error_std", np.nan))]))
+                shown.append(np.array([observation_error_level(best.config)]))
         for ax in list(axes.flat)[len(points):]:
             ax.set_visible(False)
         everything = np.concatenate([s.ravel() for s in shown])

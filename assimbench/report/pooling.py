@@ -25,6 +25,7 @@ import numpy as np
 
 from assimbench.config.catalogue import catalogue
 from assimbench.report.collect import IGNORED_PREFIXES, Row
+from assimbench.report.words import observation_error_level
 from assimbench.twin.summaries import batch_count, pooled_interval
 
 # Keys that never tell two settings of one experiment apart.
@@ -48,7 +49,7 @@ class FailingLevel:
             return float(self.rmse), f"the failing level {self.rmse:g}"
         if self.ratio <= 0 or config.get("observation.transform", "identity") != "identity":
             return None, ""
-        error = float(config.get("observation.error_std", np.nan))
+        error = observation_error_level(config)
         times = "" if self.ratio == 1 else f"{self.ratio:g} x "
         return self.ratio * error, f"{times}the observation error {error:g}"
 

@@ -92,3 +92,13 @@ def point_name(filter_name: str, members, extras: str = "") -> str:
     if members:
         text += f", {members} members"
     return f"{text}, {extras}" if extras else text
+
+
+def observation_error_level(config: dict) -> float:
+    """The observation error a state RMSE is read against, from a flat config ("observation.error_std"):
+    error_std, or with per-station factors the root mean square of the stations' errors."""
+    error = float(config.get("observation.error_std", float("nan")))
+    factors = config.get("observation.error_factors")
+    if factors is None:
+        return error
+    return error * float(sum(f * f for f in factors) / len(factors)) ** 0.5

@@ -116,3 +116,13 @@ def test_the_printed_observation_error_is_the_stations_root_mean_square():
     assert observation_error(config) == (0.5 * np.sqrt((1 + 4 + 0.25 + 2.25) / 4), " (RMS over the stations)")
     assert observation_error(config, 2.0)[0] == 4 * observation_error(config)[0]
     assert observation_error({"observation": {"error_std": 0.5}}) == (0.5, "")
+
+
+def test_the_reports_failing_level_is_the_stations_root_mean_square():
+    """The report reads a state RMSE against the same observation error the run prints."""
+    from assimbench.report.pooling import FailingLevel
+
+    config = {"observation.error_std": 0.5, "observation.error_factors": (1.0, 2.0, 0.5, 1.5)}
+    level, words = FailingLevel(ratio=1.0).level(config)
+    assert level == pytest.approx(0.5 * np.sqrt((1 + 4 + 0.25 + 2.25) / 4), rel=1e-14)
+    assert FailingLevel(ratio=1.0).level({"observation.error_std": 0.5})[0] == 0.5
