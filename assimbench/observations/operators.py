@@ -122,10 +122,6 @@ class ObservationOperator(NamedTuple):
         error_std = settings[self.error_section]["error_std"]
         return error_std if self.error_factors is None else error_std * jnp.asarray(self.error_factors)
 
-    def error_variance(self, settings):
-        """R's diagonal, error_std_of(settings)^2: a scalar, or (p,) with per-station factors."""
-        return self.error_std_of(settings) ** 2
-
     @property
     def correlated(self) -> bool:
         return self.correlation_shape is not None
