@@ -31,6 +31,7 @@ import numpy as np  # noqa: E402
 from scipy import stats  # noqa: E402
 
 import assimbench  # noqa: E402
+from assimbench.report.figures import OKABE_ITO  # noqa: E402
 
 FILTER = ["filter=letkf", "filter.members=20", "filter.radius=4", "filter.inflation=1.04"]
 HALF = list(range(20))
@@ -103,15 +104,19 @@ def main() -> int:
         for a, b in outages:
             if a <= cycles[-1] and b >= cycles[0]:
                 axis.axvspan(a - 0.5, b + 0.5, color="0.88", lw=0)
-    for name, colour in zip(networks, ("tab:blue", "tab:red", "tab:green")):
+    colours = (OKABE_ITO["blue"], OKABE_ITO["vermillion"], OKABE_ITO["bluish green"])
+    for name, colour in zip(networks, colours):
         top.plot(cycles, series[name][0, shown], color=colour, lw=1.2, label=name)
         seen = (np.asarray(runs[name].series["stations_seen"])[0, shown] if name != "all reporting"
                 else np.full(cycles.size, 40.0))
-        bottom.plot(cycles, seen, color=colour, lw=1.2)
+        # Whole stations per cycle: steps; the full ring dashed so the half ring's 40 shows beneath it.
+        bottom.plot(cycles, seen, color=colour, lw=1.2, drawstyle="steps-mid",
+                    ls="--" if name == "all reporting" else "-", zorder=3 if name == "all reporting" else 2)
     top.set_ylabel("analysis RMSE")
     top.set_xlim(cycles[0] - 0.5, cycles[-1] + 0.5)
     top.set_ylim(0, None)
-    figure.suptitle("Coastal ring, replicate 1: grey bands are the half ring's scheduled outages", fontsize=10)
+    figure.suptitle("Coastal ring, the first replicate: grey bands are the half ring's scheduled outages",
+                    fontsize=10)
     figure.legend(*top.get_legend_handles_labels(), loc="upper center", ncol=3, fontsize=8, frameon=False,
                   bbox_to_anchor=(0.5, 0.955))
     bottom.set_ylabel("stations reporting")

@@ -164,10 +164,23 @@ def assumed_words(assumed: dict) -> str:
              "correlation_shape": "correlation shape", "error_factors": "factors"}
     shown = []
     for key, value in given.items():
-        text = "[" + ",".join(f"{v:g}" for v in value) + "]" if isinstance(value, (list, tuple)) else f"{value:g}" \
-            if isinstance(value, (int, float)) else str(value)
+        if isinstance(value, (list, tuple)):
+            listed = [float(v) for v in value]
+            text = ("[" + ",".join(f"{v:g}" for v in listed) + "]" if len(listed) <= 6
+                    else f"{len(listed)} values from {min(listed):g} to {max(listed):g}")
+        else:
+            text = f"{value:g}" if isinstance(value, (int, float)) else str(value)
         shown.append(f"{names.get(key, key)} {text}")
     return "; the filter assumes " + ", ".join(shown)
+
+
+def station_total(config: dict) -> int:
+    """The network's number of stations, from a run's config."""
+    net, model = config.get("observation", {}), config.get("model", {})
+    if net.get("stations") is not None:
+        return len(net["stations"])
+    size = int(model.get("size") or model.get("slow") or 3)
+    return -(-size // int(net.get("stride", 1)))
 
 
 def assumed_variances(config: dict) -> np.ndarray:
@@ -188,11 +201,13 @@ def station_lines(per_replicate: dict, config: dict) -> list:
     stations = network.get("stations")
     positions = (np.asarray(stations, dtype=float) if stations is not None
                  else int(network.get("stride", 1)) * np.arange(estimate.size, dtype=float))
-    where = lambda i: f"station {i} at {positions[i]:g}"
-    low, high = int(np.nanargmin(estimate)), int(np.nanargmax(estimate))
-    assumed = assumed_variances(config)
-    return [f"  {'by station':<20}Desroziers R from {estimate[low]:.3g} ({where(low)}) to {estimate[high]:.3g} "
-            f"({where(high)}); the filter assumed {assumed.min():.3g} to {assumed.max():.3g}",
+    where = lambda i: f"station number {i}, at grid position {positions[i]:g}"
+    assumed = np.broadcast_to(assumed_variances(config), estimate.shape)
+    ratio = estimate / assumed
+    low, high = int(np.nanargmin(ratio)), int(np.nanargmax(ratio))
+    return [f"  {'by station':<20}error variance as the data estimate it (Desroziers) over the variance the "
+            f"filter assumed: from {ratio[low]:.3g} ({estimate[low]:.3g} / {assumed[low]:.3g}, {where(low)}) to "
+            f"{ratio[high]:.3g} ({estimate[high]:.3g} / {assumed[high]:.3g}, {where(high)}); near 1 for a right R",
             f"  {'':<20}(every station's: station_desroziers_r in the file's /summary and in Result.per_replicate)"]
 
 
@@ -273,7 +288,8 @@ def format_summary(result, path, title: str) -> str:
                         ("Gauss-Newton steps", "iterations"), ("member-intervals", "model_integrations"),
                         ("stations reporting", "stations_seen")):
         if name in s:
-            lines.append(f"  {label:<20}{_cell(s, name)}")
+            of = f"   of {station_total(config)}" if name == "stations_seen" else ""
+            lines.append(f"  {label:<20}{_cell(s, name)}{of}")
     lines += station_lines(result.per_replicate, config)
     shares = {int(name[len("iterations_share"):]): s[name] for name in s
               if name.startswith("iterations_share") and name[len("iterations_share"):].isdigit()}

@@ -10,7 +10,8 @@ a filter that sees only the observation at each analysis time.
 On a cycle without an analysis, the filter's info reports no Gauss-Newton
 steps and no extra integrations, an inflation factor of 1 (nothing was
 inflated) and the effective sample size of the weights it carries; the
-analysis diagnostics are those of the forecast.
+analysis diagnostics are those of the forecast, and the Desroziers
+statistics (which need an analysis) leave those cycles out.
 """
 
 from typing import NamedTuple
@@ -58,7 +59,10 @@ def every_kth_analysis(filt: Filter, every: int) -> Filter:
         run = lambda _: filt.analyse(key, inner, y, settings)
         shapes = jax.eval_shape(run, None)[1]
         skip = lambda _: (inner, _no_analysis_info(shapes, inner))
-        analysed, info = jax.lax.cond(cycle % every == 0, run, skip, None)
+        analysing = cycle % every == 0
+        analysed, info = jax.lax.cond(analysing, run, skip, None)
+        # The diagnostics leave a cycle without an analysis out of the Desroziers statistics.
+        info = {**info, "analysed": analysing.astype(jnp.float64)}
         return SparseState(members=analysed.members, cycle=cycle, inner=analysed), info
 
     return filt._replace(init=init, analyse=analyse, analyse_lagged=None)

@@ -118,18 +118,32 @@ def _check_outages(c: NodeChecks, truth) -> None:
     if blocks is None:
         return
     count = station_count(c.node, truth.resolved)
-    form = ("a list of blocks {first_cycle: k1, last_cycle: k2, stations: [numbers]}, 1 <= k1 <= k2, "
-            f"station numbers from 0 to {count - 1}")
-    for block in blocks:
-        if not hasattr(block, "keys") or set(block.keys()) != {"first_cycle", "last_cycle", "stations"}:
-            c.fail("outage_schedule", _shown(blocks), form)
+    form = ("allowed are blocks {first_cycle: k1, last_cycle: k2, stations: [numbers]} with whole cycles "
+            f"1 <= k1 <= k2 and station numbers from 0 to {count - 1}, each once")
+    shown = _shown(blocks)
+    whole = lambda v: isinstance(v, int) and not isinstance(v, bool)
+    for number, block in enumerate(blocks, start=1):
+        where = f"block {number}"
+        if not hasattr(block, "keys"):
+            c.fail("outage_schedule", shown, f"{where} is not a {{...}} mapping: {form}")
+        keys = set(block.keys())
+        if keys != {"first_cycle", "last_cycle", "stations"}:
+            missing, extra = {"first_cycle", "last_cycle", "stations"} - keys, keys - {"first_cycle", "last_cycle",
+                                                                                      "stations"}
+            said = ", ".join([f"lacks {k}" for k in sorted(missing)] + [f"has unknown key {k}" for k in sorted(extra)])
+            c.fail("outage_schedule", shown, f"{where} {said}: {form}")
         first, last, stations = block["first_cycle"], block["last_cycle"], block["stations"]
-        whole = lambda v: isinstance(v, int) and not isinstance(v, bool)
-        if not (whole(first) and whole(last) and 1 <= first <= last):
-            c.fail("outage_schedule", _shown(blocks), form)
-        if not hasattr(stations, "__len__") or isinstance(stations, str) or not stations or \
-                not all(whole(i) and 0 <= i < count for i in stations):
-            c.fail("outage_schedule", _shown(blocks), form)
+        if not (whole(first) and whole(last)) or first < 1:
+            c.fail("outage_schedule", shown, f"{where} has cycles {first}..{last}, not whole cycles from 1: {form}")
+        if first > last:
+            c.fail("outage_schedule", shown, f"{where} ends (cycle {last}) before it starts (cycle {first}): {form}")
+        if not hasattr(stations, "__len__") or isinstance(stations, str) or not stations:
+            c.fail("outage_schedule", shown, f"{where} lists no station: {form}")
+        bad = [i for i in stations if not (whole(i) and 0 <= i < count)]
+        if bad:
+            c.fail("outage_schedule", shown, f"{where} has station {bad[0]}, not a station number: {form}")
+        if len(set(stations)) != len(stations):
+            c.fail("outage_schedule", shown, f"{where} lists a station twice: {form}")
 
 
 def _shown(value) -> str:

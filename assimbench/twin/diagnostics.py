@@ -25,6 +25,10 @@ import numpy as np
 OPTIONAL = ("spread_skill", "crps", "rank_histogram", "innovation", "desroziers", "ess", "increment", "inflation",
             "iterations", "by_station")
 
+# Series undefined (NaN) on a cycle with no station reporting (innovations) or without an analysis
+# (the Desroziers statistics, which need d_oa); their time means skip those cycles.
+GAPPED = ("innovation_mean", "innovation_ratio", "desroziers_r", "desroziers_hbht", "desroziers_total")
+
 # Groups computed only when asked for by name (diagnostics=[...]): they store a station axis per cycle.
 OPT_IN = ("by_station",)
 
@@ -248,7 +252,8 @@ def make_cycle_diagnostics(groups, operator, weighted: bool):
             seen = jnp.isfinite(y)
             y = jnp.where(seen, y, 0.0)
             out["stations_seen"] = jnp.sum(seen).astype(jnp.float64)
-            mean = lambda v: jnp.sum(jnp.where(seen, v, 0.0)) / jnp.maximum(jnp.sum(seen), 1)
+            count = jnp.sum(seen)
+            mean = lambda v: jnp.where(count > 0, jnp.sum(jnp.where(seen, v, 0.0)) / jnp.maximum(count, 1), jnp.nan)
         if "rank_histogram" in groups:
             out["rank_truth_forecast"] = rank_counts(forecast.members, truth)
             noisy = operator(forecast.members) + jax.vmap(lambda e: operator.noise(e, settings))(rank_noise)
@@ -265,8 +270,11 @@ def make_cycle_diagnostics(groups, operator, weighted: bool):
             out["innovation_ratio"] = mean(d_ob**2) / (mean(variance) + noise)
         if "desroziers" in groups or "by_station" in groups:
             d_oa = y - normalised_weights(analysis) @ operator(analysis.members)
+        analysed = info.get("analysed")  # 0 on a cycle a filter skipped (analysis_every > 1): no d_oa
         if "by_station" in groups:
             reported = jnp.ones_like(y) if seen is None else seen.astype(jnp.float64)
+            if analysed is not None:
+                reported = reported * analysed
             out["station_reports"] = reported
             out["station_innovation"] = reported * d_ob
             out["station_innovation_square"] = reported * d_ob * d_ob
@@ -275,6 +283,9 @@ def make_cycle_diagnostics(groups, operator, weighted: bool):
             out["desroziers_r"] = mean(d_oa * d_ob)
             out["desroziers_hbht"] = mean((d_ob - d_oa) * d_ob)
             out["desroziers_total"] = mean(d_ob * d_ob)
+            if analysed is not None:
+                for name in ("desroziers_r", "desroziers_hbht", "desroziers_total"):
+                    out[name] = jnp.where(analysed > 0, out[name], jnp.nan)
         if "ess" in groups:
             out["ess"] = info["ess"]
         if "inflation" in groups:

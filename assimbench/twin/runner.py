@@ -22,7 +22,7 @@ from assimbench.io.result_writer import ResultWriter
 from assimbench.io.results import Result
 from assimbench.twin.block_workers import BlockWorkers, worker_count
 from assimbench.twin.cycling import make_chunk, make_start, replicate_keys
-from assimbench.twin.diagnostics import STATION_MEANS, STATION_SUMS
+from assimbench.twin.diagnostics import GAPPED, STATION_MEANS, STATION_SUMS
 from assimbench.twin.summaries import TimeMeans, update_lost_runs
 
 
@@ -60,7 +60,7 @@ class MeansSink:
     ``<name>_share<v>`` (the time mean of an indicator: a distribution with intervals)."""
 
     def __init__(self, plan, names: list, keep_series: bool, lag_names: tuple = (), shares: dict | None = None):
-        self.means = TimeMeans(plan.lanes * plan.replicates, plan.cycles, plan.burn_in)
+        self.means = TimeMeans(plan.lanes * plan.replicates, plan.cycles, plan.burn_in, gapped=GAPPED)
         self.names = list(names) + list(lag_names)
         self.lag_names = set(lag_names)
         self.shares = shares or {}
@@ -98,7 +98,8 @@ class DivergenceMonitor:
     def add(self, chunk: Chunk) -> None:
         broken = np.zeros((self.first_bad.size, chunk.length), dtype=bool)
         for name in self.scalar_names:
-            broken |= ~np.isfinite(chunk.series[name])
+            if name not in GAPPED:  # undefined on a cycle without observations to score, not broken
+                broken |= ~np.isfinite(chunk.series[name])
         newly = (self.first_bad < 0) & broken.any(axis=1)
         self.first_bad[newly] = chunk.first_cycle + np.argmax(broken[newly], axis=1)
         above = chunk.series["rmse_analysis"] > self.threshold

@@ -23,7 +23,13 @@ DEFAULT_BATCHES = 20
 class TimeMeans:
     """Stream (replicates, L) chunks of per-cycle series into batch sums after burn-in."""
 
-    def __init__(self, replicates: int, cycles: int, burn_in: int, batches: int = DEFAULT_BATCHES):
+    def __init__(self, replicates: int, cycles: int, burn_in: int, batches: int = DEFAULT_BATCHES,
+                 gapped=frozenset()):
+        """``gapped``: series undefined (NaN) on some cycles, e.g. the innovation statistics of a cycle
+        without a reporting station; their means are over the cycles where they are defined (for any
+        other series a NaN stays NaN, the mark of a run that blew up)."""
+        self.gapped = frozenset(gapped)
+        self.counts: dict = {}
         self.replicates = replicates
         self.burn_in = burn_in
         length = cycles - burn_in
@@ -46,6 +52,12 @@ class TimeMeans:
         batch = np.searchsorted(self.edges, position[keep], side="right") - 1
         sums = self.sums.setdefault(name, np.zeros((self.replicates, self.batches)))
         kept = values[:, keep]
+        if name in self.gapped:
+            defined = np.isfinite(kept)
+            counts = self.counts.setdefault(name, np.zeros((self.replicates, self.batches)))
+            for b in np.unique(batch):
+                counts[:, b] += defined[:, batch == b].sum(axis=1)
+            kept = np.where(defined, kept, 0.0)
         # Strictly sequential sums in cycle order (cumsum continues from the running sum),
         # so the result is the same to the bit however the cycles were cut into chunks.
         for b in np.unique(batch):
@@ -65,8 +77,13 @@ class TimeMeans:
         """As :meth:`summarise`, with the replicates split into ``groups`` equal
         consecutive groups (lanes): mean, low, high are (groups,) arrays, each
         over the replicates of its group."""
-        batch_means = self.sums[name] / self.sizes  # (R, B)
-        per_replicate = self.sums[name].sum(axis=1) / self.sizes.sum()
+        if name in self.counts:  # a gapped series: over the cycles where it is defined
+            with np.errstate(invalid="ignore", divide="ignore"):
+                batch_means = self.sums[name] / self.counts[name]  # (R, B)
+                per_replicate = self.sums[name].sum(axis=1) / self.counts[name].sum(axis=1)
+        else:
+            batch_means = self.sums[name] / self.sizes  # (R, B)
+            per_replicate = self.sums[name].sum(axis=1) / self.sizes.sum()
         size = self.replicates // groups
         if self.batches > 1:
             se = batch_means.std(axis=1, ddof=1) / np.sqrt(self.batches)

@@ -52,3 +52,16 @@ def test_bad_analysis_intervals_are_one_line(overrides, words):
         resolve(compose_config(SMALL + overrides))
     message = str(caught.value)
     assert "\n" not in message and all(word in message for word in words), message
+
+
+def test_the_desroziers_statistics_leave_out_the_cycles_without_an_analysis():
+    """d_oa needs an analysis: with analysis_every=3 the Desroziers series are NaN on the other cycles and
+    their time means are over the analysis cycles; the innovation ratio (forecast only) is every cycle's."""
+    result = assimbench.run(SMALL + ["filter=etkf", "analysis_every=3", "diagnostics=[innovation,desroziers]"])
+    cycles = np.arange(1, 61)
+    r = result.series["desroziers_r"][0]
+    assert np.all(np.isnan(r[cycles % 3 != 0])) and np.all(np.isfinite(r[cycles % 3 == 0]))
+    kept = r[(cycles % 3 == 0) & (cycles > 5)]
+    assert result.summary["desroziers_r"] == pytest.approx(kept.mean(), rel=1e-12)
+    assert np.all(np.isfinite(result.series["innovation_ratio"]))
+    assert np.all(np.asarray(result.first_bad_cycle) == -1)

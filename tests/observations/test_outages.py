@@ -164,10 +164,42 @@ def test_every_filter_fed_a_missing_station_analyses_as_without_it(name, extra, 
     (["observation.outage_schedule=[{first_cycle:10,stations:[0]}]"], ["observation.outage_schedule", "blocks"]),
     (["observation.outage_schedule=[{first_cycle:10,last_cycle:5,stations:[0]}]"], ["k1 <= k2"]),
     (["observation.outage_schedule=[{first_cycle:1,last_cycle:5,stations:[6]}]"], ["from 0 to 5"]),
-    (["observation.outage_schedule=[{first_cycle:1,last_cycle:5,stations:[]}]"], ["station numbers"]),
+    (["observation.outage_schedule=[{first_cycle:1,last_cycle:5,stations:[]}]"], ["lists no station"]),
+    (["observation.outage_schedule=[{first_cycle:1,last_cycle:5,stations:[2,2]}]"], ["lists a station twice"]),
+    (["observation.outage_schedule=[{first_cycle:10,last_cycle:5,stations:[0]}]"], ["ends (cycle 5) before"]),
 ])
 def test_bad_outages_are_one_line(overrides, words):
     with pytest.raises(ConfigError) as caught:
         resolve(compose_config(SMALL + overrides))
     message = str(caught.value)
     assert "\n" not in message and all(word in message for word in words), message
+
+
+def test_a_cycle_with_no_station_reporting_is_not_a_divergence():
+    """The whole network out for 6 cycles: the innovation statistics of those cycles are undefined (NaN in
+    the series), their time means are over the other cycles, and the run is not marked diverged."""
+    every = ",".join(str(i) for i in range(6))
+    result = assimbench.run(SMALL + ["filter=etkf", "diagnostics=[innovation,desroziers]",
+                                     f"observation.outage_schedule=[{{first_cycle:20,last_cycle:25,stations:[{every}]}}]"])
+    assert np.all(np.asarray(result.first_bad_cycle) == -1)
+    ratio = result.series["innovation_ratio"][0]
+    assert np.all(np.isnan(ratio[19:25])) and np.all(np.isfinite(np.delete(ratio, np.arange(19, 25))))
+    kept = np.delete(ratio, np.arange(19, 25))[5:]  # after the 5 burn-in cycles
+    assert result.summary["innovation_ratio"] == pytest.approx(kept.mean(), rel=1e-12)
+    assert np.all(result.series["stations_seen"][0, 19:25] == 0)
+
+
+def test_gapped_time_means_skip_undefined_cycles_and_others_keep_their_nan():
+    """TimeMeans: a gapped series averages the cycles where it is defined, chunk by chunk as at once; any
+    other series with a NaN stays NaN (a run that blew up is never averaged into a number)."""
+    from assimbench.twin.summaries import TimeMeans
+
+    values = np.arange(40.0)[None, :].repeat(2, axis=0)
+    values[0, 7] = values[1, 30] = np.nan
+    means = TimeMeans(2, 40, 0, batches=4, gapped={"gapped"})
+    for start in range(0, 40, 9):
+        means.add("gapped", values[:, start:start + 9], start + 1)
+        means.add("plain", values[:, start:start + 9], start + 1)
+    gapped, plain = means.summarise_groups("gapped", 1), means.summarise_groups("plain", 1)
+    np.testing.assert_allclose(gapped["per_replicate"], np.nanmean(values, axis=1), rtol=1e-14)
+    assert np.all(np.isnan(plain["per_replicate"]))
