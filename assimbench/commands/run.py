@@ -36,6 +36,7 @@ from assimbench.config.composition import config_dir
 from assimbench.config.plan import resolve
 from assimbench.io.provenance import config_hash
 from assimbench.io.results import ResultFileError, read_result, stored_config_hash
+from assimbench.observations.networks import rms_error, station_count
 from assimbench.report.words import setting_word, value_text
 from assimbench.twin.block_workers import WorkerFailed
 
@@ -176,11 +177,8 @@ def assumed_words(assumed: dict) -> str:
 
 def station_total(config: dict) -> int:
     """The network's number of stations, from a run's config."""
-    net, model = config.get("observation", {}), config.get("model", {})
-    if net.get("stations") is not None:
-        return len(net["stations"])
-    size = int(model.get("size") or model.get("slow") or 3)
-    return -(-size // int(net.get("stride", 1)))
+    model = config.get("model", {})
+    return station_count(config.get("observation", {}), int(model.get("size") or model.get("slow") or 3))
 
 
 def assumed_variances(config: dict) -> np.ndarray:
@@ -215,11 +213,9 @@ def observation_error(config: dict, error_std=None) -> tuple:
     """(the observation error a reader compares with, its label's suffix): ``error_std`` (default the
     config's), or with per-station factors the root mean square of the stations' errors."""
     network = config.get("observation", {})
-    error = float(network.get("error_std", np.nan) if error_std is None else error_std)
     factors = network.get("error_factors")
-    if factors is None:
-        return error, ""
-    return error * float(np.sqrt(np.mean(np.square(list(factors))))), " (RMS over the stations)"
+    error = rms_error(network.get("error_std", np.nan) if error_std is None else error_std, factors)
+    return error, "" if factors is None else " (RMS over the stations)"
 
 
 def reference_lines(summary: dict, config: dict, climate: float) -> list:

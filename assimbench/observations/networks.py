@@ -102,8 +102,16 @@ def _check(c: NodeChecks, truth) -> None:
 
 
 def station_count(node, resolved: int) -> int:
-    """The network's number of stations."""
-    return len(node.stations) if node.stations is not None else -(-resolved // int(node.stride))
+    """The network's number of stations (``node``: the observation node, or its plain dict)."""
+    stations = node.get("stations")
+    return len(stations) if stations is not None else -(-resolved // int(node.get("stride", 1)))
+
+
+def rms_error(error_std, factors) -> float:
+    """The stations' root-mean-square error std: error_std, times sqrt(mean(factors^2)) with factors."""
+    if factors is None:
+        return float(error_std)
+    return float(error_std) * float(np.sqrt(np.mean(np.square(np.asarray(list(factors), dtype=float)))))
 
 
 def _check_outages(c: NodeChecks, truth) -> None:
@@ -164,9 +172,10 @@ def _check_correlation(c: NodeChecks, truth, network) -> None:
         c.fail("correlation_length", length, f"0: {truth.name} has no distance between variables")
     operator = _build(network, truth.resolved)._replace(correlation_shape=str(c.node.correlation_shape))
     correlation = np.asarray(operator.error_correlation({operator.error_section: {"correlation_length": length}}))
-    smallest = float(np.linalg.eigvalsh(correlation)[0])
+    spectrum = np.linalg.eigvalsh(correlation)
+    smallest = float(spectrum[0])
     # Relative to the largest eigenvalue: below this the Cholesky factor loses most of its digits.
-    if smallest <= 1e-10 * float(np.linalg.eigvalsh(correlation)[-1]):
+    if smallest <= 1e-10 * float(spectrum[-1]):
         c.fail("correlation_length", length, f"a length whose R is positive definite: with the "
                f"{c.node.correlation_shape} shape on these {operator.size} stations the correlation matrix's "
                f"smallest eigenvalue is {smallest:.2g} (use a shorter length or the exponential shape)")

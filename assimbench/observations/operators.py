@@ -68,12 +68,20 @@ class WindowFrame(NamedTuple):
     """A window's observations (W, p) as a 4D method assimilates them: ``obs`` in the frame, R's
     diagonal there (``variance``, ``std``), and ``apply`` taking any (W, ..., p) array of predicted
     observations (or their sensitivities) to the frame, time by time: missing stations (NaN in the
-    window's y) masked, and with a correlated R whitened by the Cholesky factor of that time's R."""
+    window's y) masked, and with a correlated R whitened by the Cholesky factor of that time's R
+    (None when the frame is y's own: independent errors and no outages)."""
 
     obs: jax.Array
     variance: object
     std: object
     apply: Callable
+
+
+def decoupled(covariance, seen):
+    """R (..., p, p) with the rows and columns of the stations not ``seen`` (..., p) replaced by the identity's:
+    what is left is R's block of the stations seen, and the others are independent with unit variance."""
+    both = seen[..., :, None] & seen[..., None, :]
+    return jnp.where(both, covariance, jnp.eye(covariance.shape[-1]))
 
 
 def _by_time(mask, v):
@@ -178,7 +186,7 @@ class ObservationOperator(NamedTuple):
             return Whitened(observe, y, std**2, std, observe, y, None, seen)
         covariance = self.error_covariance(settings)
         if seen is not None:
-            covariance = jnp.where(seen[:, None] & seen[None, :], covariance, jnp.eye(self.size))
+            covariance = decoupled(covariance, seen)
         root = jnp.linalg.cholesky(covariance)
         apply = lambda v: whiten_with(root, v)
         return Whitened(lambda x: apply(observe(x)), apply(y), 1.0, 1.0, observe, y, covariance, seen)
@@ -229,15 +237,14 @@ def _window_frame(operator, settings, obs) -> WindowFrame:
     if not operator.correlated:
         std = operator.error_std_of(settings)
         if seen is None:
-            return WindowFrame(obs, std**2, std, lambda v: v)
+            return WindowFrame(obs, std**2, std, None)
         return WindowFrame(obs, std**2, std, lambda v: jnp.where(_by_time(seen, v), v, 0.0))
     covariance = operator.error_covariance(settings)
     if seen is None:
         root = jnp.linalg.cholesky(covariance)
         apply = lambda v: whiten_with(root, v)
     else:  # one R per time: the block of the stations seen, the others decoupled with unit variance
-        both = seen[:, :, None] & seen[:, None, :]
-        roots = jnp.linalg.cholesky(jnp.where(both, covariance, jnp.eye(operator.size)))  # (W, p, p)
+        roots = jnp.linalg.cholesky(decoupled(covariance, seen))  # (W, p, p)
 
         def apply(v):
             masked = jnp.where(_by_time(seen, v), v, 0.0)

@@ -5,6 +5,8 @@ A reader of a report should see "inflation 1.05" and "analysis RMSE", not
 the CSV files keep the config keys as column names, so scripts can find them.
 """
 
+from assimbench.observations.networks import rms_error
+
 SETTING_WORDS = {
     "filter.members": "ensemble size",
     "filter.inflation": "inflation",
@@ -97,8 +99,4 @@ def point_name(filter_name: str, members, extras: str = "") -> str:
 def observation_error_level(config: dict) -> float:
     """The observation error a state RMSE is read against, from a flat config ("observation.error_std"):
     error_std, or with per-station factors the root mean square of the stations' errors."""
-    error = float(config.get("observation.error_std", float("nan")))
-    factors = config.get("observation.error_factors")
-    if factors is None:
-        return error
-    return error * float(sum(f * f for f in factors) / len(factors)) ** 0.5
+    return rms_error(config.get("observation.error_std", float("nan")), config.get("observation.error_factors"))

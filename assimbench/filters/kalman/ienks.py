@@ -238,7 +238,7 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
         analysed, iterations, zeta = window_search(
             start, frame.obs, weights, frame.variance, advance, operator,
             settings["forecast_model"], max_iterations, f["tolerance"], variant, f["bundle_scale"], solver,
-            prior_count, frame.apply if operator.outages or operator.correlated else None)
+            prior_count, frame.apply)
         return analysed, (iterations, zeta)
 
     inflated_search = with_inflation(search, pieces)

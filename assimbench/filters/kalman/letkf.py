@@ -36,6 +36,7 @@ from assimbench.filters.kalman.ensemble_space import ensemble_space
 from assimbench.filters.kalman.inflation import INFLATION_KEYS, WIDEST, ensemble_filter, inflation_pieces
 from assimbench.filters.kalman.precision_solvers import check_transform_solver, solve_precision
 from assimbench.localization import gaspari_cohn, radius_of, radius_setting, ring_distance, with_radius_check
+from assimbench.observations.operators import decoupled
 
 
 def local_windows(state_size: int, positions: np.ndarray, window_radius: float | None):
@@ -61,9 +62,7 @@ def local_windows(state_size: int, positions: np.ndarray, window_radius: float |
 def local_error_blocks(covariance, local_index, local_mask):
     """R_g (n, K, K): the block of R (p, p) between the observations grid point g sees (local_index,
     local_mask (n, K) from :func:`local_windows`), the padding decoupled with unit variance."""
-    block = covariance[local_index[:, :, None], local_index[:, None, :]]
-    both = local_mask[:, :, None] & local_mask[:, None, :]
-    return jnp.where(both, block, jnp.eye(local_index.shape[1]))
+    return decoupled(covariance[local_index[:, :, None], local_index[:, None, :]], local_mask)
 
 
 def letkf_whitened(members, white, local_index, local_weight, local_mask, solver: str = "eigh"):

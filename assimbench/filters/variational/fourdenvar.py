@@ -118,8 +118,7 @@ def make_4denvar(model, operator, climate_cov, members: int, window: int, radius
         factors = jax.vmap(lambda a: hybrid_factor(a, climate_factor, f["ensemble_weight"], f["static_scale"],
                                                    root))(anomalies)
         frame = operator.window_frame(settings, obs)  # the window's observations (W, p) in the filter's frame
-        apply = None if not (operator.outages or operator.correlated) else frame.apply
-        v = gauss_newton_4denvar(backgrounds, factors, frame.obs, mask, frame.variance, operator, steps, apply)
+        v = gauss_newton_4denvar(backgrounds, factors, frame.obs, mask, frame.variance, operator, steps, frame.apply)
         trajectory = backgrounds + factors @ v
         analysed, info = update_members(key, state.members, y, trajectory[filled - 1], settings)
         return WindowEnsembleState(members=analysed, start=start, shifted=trajectory[0], obs=obs, filled=filled,

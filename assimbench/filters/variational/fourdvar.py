@@ -79,13 +79,10 @@ class FourDVarState(NamedTuple):
     filled: jax.Array
 
 
-def _unchanged(v):
-    return v
-
-
-def window_residuals(v, background, factor, obs, mask, error_std, advance, h, params, frame=_unchanged):
+def window_residuals(v, background, factor, obs, mask, error_std, advance, h, params, frame=None):
     """Scaled residuals e(v) (W, p): m_j (F_j h(M_j(x_b + L v)) - y_j) / error_std; factor = L (n, m); ``frame``
-    takes the predicted observations (W, p) to the window's frame F_j (masked, whitened; obs are in it)."""
+    takes the predicted observations (W, p) to the window's frame F_j (masked, whitened; obs are in it; None:
+    they are in y's own frame)."""
     x0 = background + factor @ v
 
     def step(x, _):
@@ -93,7 +90,9 @@ def window_residuals(v, background, factor, obs, mask, error_std, advance, h, pa
         return x, h(x)
 
     _, predicted = jax.lax.scan(step, x0, None, length=obs.shape[0])
-    return mask[:, None] * (frame(predicted) - obs) / error_std
+    if frame is not None:
+        predicted = frame(predicted)
+    return mask[:, None] * (predicted - obs) / error_std
 
 
 def window_cost(v, *args):
@@ -123,7 +122,7 @@ def conjugate_gradients(apply, rhs, iterations: int):
 
 
 def minimise_window(background, factor, obs, mask, error_std, advance, h, params, iterations, inner_iterations,
-                    frame=_unchanged):
+                    frame=None):
     """v* after the Gauss-Newton-CG iterations (module docstring), starting from v = 0."""
     args = (background, factor, obs, mask, error_std, advance, h, params, frame)
 
