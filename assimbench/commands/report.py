@@ -21,7 +21,7 @@ import numpy as np
 
 from assimbench.io.atomic import unwritable, write_text
 from assimbench.report import figures
-from assimbench.report.collect import collect, experiment_differences
+from assimbench.report.collect import collect, experiment_differences, varied_settings
 from assimbench.report.decide import comparisons, decide, distinguishable, setting_text
 from assimbench.report.pooling import FailingLevel, pool
 from assimbench.report.tables import (
@@ -198,6 +198,11 @@ def build_report(paths: list, out: str, failing: FailingLevel = DEFAULT_LEVEL) -
             written.append(figures.error_by_lag(mine, os.path.join(out, f"error_by_lag_{tag}.png")))
         if any(p.best is not None and p.best.has("model_integrations") for p in mine):
             written.append(figures.error_against_cost(mine, os.path.join(out, f"error_against_cost_{tag}.png")))
+        estimating = [s for p in mine for s in p.settings if figures.estimated_parameters(s)]
+        if estimating:
+            keys = varied_settings([row for s in estimating for row in s.rows])
+            written.append(figures.parameter_trajectories(
+                estimating, keys, os.path.join(out, f"parameter_trajectories_{tag}.png")))
         written += heat_maps(mine, out, tag)
     return written, problems + notes, points, compared
 

@@ -34,6 +34,7 @@ from assimbench.commands._hydra import fail, informational, job_folder_of, prefl
 from assimbench.config.checks import ConfigError
 from assimbench.config.composition import config_dir
 from assimbench.config.plan import resolve
+from assimbench.estimation.section import spread_warning
 from assimbench.io.provenance import config_hash
 from assimbench.io.results import ResultFileError, read_result, stored_config_hash
 from assimbench.observations.networks import rms_error, station_count
@@ -249,6 +250,20 @@ def reference_lines(summary: dict, config: dict, climate: float) -> list:
     return lines
 
 
+def estimate_lines(summary: dict, config: dict) -> list:
+    """The estimated parameters: time-mean analysis mean and spread with intervals, and the error
+    against the truth's value where the truth model has the parameter."""
+    names = list(config.get("estimate", {}).get("parameters") or [])
+    if not names:
+        return []
+    lines = [f"  {'estimated':<20}{'mean':>22}{'spread':>22}{'minus truth':>22}"]
+    for name in names:
+        stem = f"estimate_{name}"
+        lines.append(f"  {name:<20}{_cell(summary, stem + '_mean')}{_cell(summary, stem + '_spread')}"
+                     f"{_cell(summary, stem + '_error')}")
+    return lines
+
+
 def format_summary(result, path, title: str) -> str:
     """The block printed at the end of a run: what ran (settings, network), time means after burn-in
     with 95% intervals, and the reference levels the analysis error should beat."""
@@ -276,6 +291,7 @@ def format_summary(result, path, title: str) -> str:
         lines.append(f"  {'smoothed, lag':<20}{'RMSE':>22}{'spread':>22}")
         lines += [f"  {lag:>13}{'':<7}{_cell(s, f'rmse_smoothed_lag{lag}')}{_cell(s, f'spread_smoothed_lag{lag}')}"
                   for lag in lags]
+    lines += estimate_lines(s, config)
     if "spread_skill_ratio_analysis" in s:
         lines.append(f"  {'spread / RMSE':<20}{s['spread_skill_ratio_forecast']:>22.4f}"
                      f"{s['spread_skill_ratio_analysis']:>22.4f}   (ratio of the time means)")
@@ -405,6 +421,9 @@ def _hydra_app(cfg: DictConfig) -> None:
             print(f"{COMMAND}: skipped: {output} is complete for this config", flush=True)
             return
         plan = resolve(cfg)
+        warning = spread_warning(cfg.estimate)
+        if warning:
+            print(f"{COMMAND}: {warning}", file=sys.stderr, flush=True)
         _raise_if_stopped()
         result = run_experiment(plan, output=output, progress=progress, keep_series=False)
     except ConfigError as err:

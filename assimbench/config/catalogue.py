@@ -10,6 +10,7 @@ from typing import NamedTuple
 
 from assimbench.config.plugins import FILTER_GROUP, MODEL_GROUP, plugin_specs
 from assimbench.config.spec import FilterSpec, NetworkSpec
+from assimbench.estimation.section import ESTIMATE_TRACED
 from assimbench.filters import reference
 from assimbench.filters.kalman import denkf, enkf, enkfn, ensrf, etkf, ienks, letkf
 from assimbench.filters.particle import sir
@@ -55,6 +56,7 @@ class Catalogue(NamedTuple):
             "observation": self.network.traced,
             "assumed": networks.ASSUMED_TRACED,
             "filter": union(self.filters.values()),
+            "estimate": ESTIMATE_TRACED,
         }
 
 

@@ -16,6 +16,13 @@ from assimbench.config.checks import ConfigError, NodeChecks, fail
 from assimbench.config.lanes import COMBINATIONS, check_lane_lists, given_lanes, lane_rows, plain_config, with_values
 from assimbench.config.schema import ExperimentBase, SmootherConfig, StoreConfig
 from assimbench.config.spec import FilterSpec, ModelFacts
+from assimbench.estimation.section import (
+    ESTIMATE_TRACED,
+    EstimateConfig,
+    check_estimate,
+    check_spread_keeping,
+    estimated,
+)
 from assimbench.integrators import steps_per_cycle
 from assimbench.observations.networks import ASSUMED_TRACED, AssumedErrorsConfig, check_assumed
 from assimbench.observations.station_rules import expand_station_rules
@@ -151,6 +158,7 @@ def _section_checks(choice: Choice, cat: Catalogue, observation) -> dict:
         "observation": lambda node: cat.network.check(NodeChecks(node, "observation"), choice.truth),
         "assumed": lambda node: check_assumed(node, observation, choice.truth),
         "filter": lambda node: choice.filter.check(NodeChecks(node, "filter"), choice.forecaster),
+        "estimate": lambda node: check_spread_keeping(NodeChecks(node, "estimate")),
         "": lambda node: NodeChecks(node, "").real("initial_spread", "a finite standard deviation >= 0",
                                                    minimum=0.0, strict=False),
     }
@@ -164,7 +172,7 @@ def _check_lanes(cfg, choice: Choice, cat: Catalogue) -> None:
         return
     traced = {"model": choice.model.traced, "forecast_model": () if choice.forecast.name == "same"
               else choice.forecast.traced, "observation": cat.network.traced, "assumed": ASSUMED_TRACED,
-              "filter": choice.filter.traced}
+              "filter": choice.filter.traced, "estimate": ESTIMATE_TRACED if estimated(cfg.estimate) else ()}
     names = {section: f"{section} {cfg[section].name}" if "name" in cfg[section] else section for section in traced}
     forecaster = "model" if choice.forecast.name == "same" else "forecast_model"
     combination = cfg.get("lane_combination", "all")
@@ -181,6 +189,13 @@ def _check_lanes(cfg, choice: Choice, cat: Catalogue) -> None:
                 raise type(err)(f"lanes.{err}") from None
 
 
+def estimable_names(cfg, choice: Choice) -> tuple:
+    """The names of the forecast model's parameters a filter can estimate (the truth's for ``same``)."""
+    if choice.forecast.name == "same":
+        return choice.model.estimable_names(cfg.model)
+    return choice.forecast.estimable_names(cfg.forecast_model)
+
+
 def _check_analysis_every(cfg, spec: FilterSpec) -> None:
     every = NodeChecks(cfg, "").integer("analysis_every", 1, "an integer >= 1 (cycles between analyses)")
     if every == 1:
@@ -195,7 +210,8 @@ def _check_analysis_every(cfg, spec: FilterSpec) -> None:
 
 def _check_known_keys(cfg, specs: dict) -> None:
     """Every key must be one of its node's schema (``+filter.foo=1`` adds a key Hydra accepts)."""
-    schemas = {"": ExperimentBase, "store": StoreConfig, "smoother": SmootherConfig, "assumed": AssumedErrorsConfig, **{section: spec.schema for section, spec in specs.items()}}
+    schemas = {"": ExperimentBase, "store": StoreConfig, "smoother": SmootherConfig, "assumed": AssumedErrorsConfig,
+               "estimate": EstimateConfig, **{section: spec.schema for section, spec in specs.items()}}
     for section, schema in schemas.items():
         node = cfg[section] if section else cfg
         allowed = {f.name for f in dataclasses.fields(schema)} | ({"lanes"} if not section else set())
@@ -227,6 +243,9 @@ def check(cfg: DictConfig) -> Choice:
     choice = Choice(model, forecast, filter_spec, truth, forecaster, given_lanes(cfg, cat.lane_keys()))
     _check_diagnostics(cfg, choice)
     _check_smoother(cfg, choice)
+    check_estimate(cfg.estimate, estimable_names(cfg, choice), filter_spec,
+                   [name for name, spec in cat.filters.items() if spec.estimates], int(cfg.smoother.lag),
+                   int(cfg.analysis_every))
     _check_outputs(cfg)
     _check_lanes(cfg, choice, cat)
     return choice

@@ -21,6 +21,8 @@ from assimbench.config.catalogue import catalogue
 from assimbench.config.choice import Choice, check
 from assimbench.config.lanes import LaneGrid, hull_values, lane_grid, plain_config, with_values
 from assimbench.config.spec import FilterContext
+from assimbench.estimation.augmented import with_parameters
+from assimbench.estimation.section import ESTIMATE_WIDEST, estimate_settings, estimated
 from assimbench.filters.smoother import with_fixed_lag
 from assimbench.filters.sparse import every_kth_analysis
 from assimbench.integrators import steps_per_cycle
@@ -98,6 +100,9 @@ def build_setup(cfg, choice: Choice) -> TwinSetup:
         filt = with_fixed_lag(filt, lag)
     if int(cfg.get("analysis_every", 1)) > 1:
         filt = every_kth_analysis(filt, int(cfg.analysis_every))
+    names = estimated(cfg.estimate)
+    if names:
+        filt = with_parameters(filt, len(names), frozenset(k for k in ESTIMATE_WIDEST if float(cfg.estimate[k]) > 0))
     available = choice.diagnostic_groups(cfg.filter)
     groups = (tuple(g for g in available if g not in OPT_IN) if cfg.diagnostics is None
               else tuple(g for g in available if g in cfg.diagnostics))
@@ -116,6 +121,7 @@ def build_setup(cfg, choice: Choice) -> TwinSetup:
         truth_noise=float(cfg.truth_noise_std) > 0.0,
         smoother_lag=lag,
         filter_operator=None if view is operator else view,
+        estimated=names,
     )
 
 
@@ -138,7 +144,8 @@ class _LaneModels:
 
 def _lane_settings(lane: DictConfig, choice: Choice, truth, forecaster) -> dict:
     """The traced settings of one lane (a plain config with its lane values set)."""
-    return {
+    estimate = {"estimate": estimate_settings(lane.estimate, forecaster.params)} if estimated(lane.estimate) else {}
+    return estimate | {
         "model": truth.params,
         "forecast_model": forecaster.params,
         "truth_noise_std": float(lane.truth_noise_std),
@@ -169,6 +176,7 @@ def resolve(cfg: DictConfig) -> Plan:
     widest = {f"filter.{key}" for key in choice.filter.widest} | {"observation.correlation_length",
                                                                    "observation.outage_probability",
                                                                    "assumed.correlation_length"}
+    widest |= {f"estimate.{key}" for key in ESTIMATE_WIDEST}
     hull = with_values(plain, grid.keys, hull_values(grid, widest)) if grid.keys else plain
     setup = build_setup(hull, choice)
     lanes = [with_values(plain, grid.keys, row) for row in grid.values] if grid.keys else [plain]

@@ -13,6 +13,7 @@ from typing import Any
 
 from omegaconf import MISSING
 
+from assimbench.estimation.section import EstimateConfig
 from assimbench.observations.networks import AssumedErrorsConfig, ObservationConfig
 
 
@@ -64,7 +65,8 @@ class ExperimentBase:
     not know; analysis_every: the filter analyses at every k-th cycle only,
     forecasting in between (the other cycles' observations unused; a window
     method uses them all and refuses it); assumed: the observation errors the filter assumes where
-    they differ from the truth's (null keys: the truth's). The defaults are the built-in demo (configs/config.yaml picks
+    they differ from the truth's (null keys: the truth's); estimate: forecast-model parameters the
+    filter estimates with the state (assimbench/estimation/section.py). The defaults are the built-in demo (configs/config.yaml picks
     its components).
     """
 
@@ -87,6 +89,7 @@ class ExperimentBase:
     diagnostics: list[str] | None = None
     store: StoreConfig = field(default_factory=StoreConfig)
     smoother: SmootherConfig = field(default_factory=SmootherConfig)
+    estimate: EstimateConfig = field(default_factory=EstimateConfig)
     divergence_factor: float = 1.0
     divergence_patience: int = 50
 

@@ -33,7 +33,9 @@ class ModelSpec:
     building; check(c: NodeChecks) the ranges of its keys; traced: keys of its
     dynamic parameters (``Model.params``, lane keys); ring: its variables sit
     on a periodic grid (localization distances exist); lorenz96_ring: its
-    resolved variables are a Lorenz-96 ring (a closure can be fitted to them).
+    resolved variables are a Lorenz-96 ring (a closure can be fitted to them);
+    estimable(node) -> the names of its parameters a filter can estimate
+    (assimbench/estimation/parameters.py; None: its traced keys).
     """
 
     name: str
@@ -44,6 +46,10 @@ class ModelSpec:
     traced: tuple = ()
     ring: bool = False
     lorenz96_ring: bool = False
+    estimable: Callable | None = None
+
+    def estimable_names(self, node) -> tuple:
+        return self.traced if self.estimable is None else tuple(self.estimable(node))
 
 
 class ModelFacts(NamedTuple):
@@ -64,7 +70,9 @@ class DerivedModelSpec:
     build(node, truth: Model) -> Model; sizes(node, truth: ModelFacts) ->
     (size, resolved); check(c, truth: ModelFacts) the ranges of its keys;
     ring(truth: ModelFacts) -> bool; traced: keys of its dynamic parameters
-    (``Model.params``, lane keys).
+    (``Model.params``, lane keys); estimable(node) -> the names of its
+    parameters a filter can estimate (None: its traced keys; the perfect
+    model ``same`` has the truth's).
     """
 
     name: str
@@ -74,6 +82,10 @@ class DerivedModelSpec:
     ring: Callable
     check: Callable = _nothing
     traced: tuple = ()
+    estimable: Callable | None = None
+
+    def estimable_names(self, node) -> tuple:
+        return self.traced if self.estimable is None else tuple(self.estimable(node))
 
 
 @dataclass(frozen=True)
@@ -126,7 +138,9 @@ class FilterSpec:
     inflation, one analysis gives the Kalman filter's mean and covariance from
     the forecast ensemble's sample mean and covariance (tested for every filter
     that declares it); windowed: the filter keeps a window of observation
-    times and uses every one of them (it refuses ``analysis_every`` > 1).
+    times and uses every one of them (it refuses ``analysis_every`` > 1);
+    estimates: the built filter offers ``Filter.analyse_augmented``, so it can
+    estimate forecast-model parameters (assimbench/estimation).
     """
 
     name: str
@@ -147,6 +161,7 @@ class FilterSpec:
     assimilates: bool = True
     kalman_exact: bool = False
     windowed: bool = False
+    estimates: bool = False
 
 
 __all__ = ["DerivedModelSpec", "FilterContext", "FilterSpec", "ModelSpec", "NetworkSpec", "ModelFacts", "NodeChecks",

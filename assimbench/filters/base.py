@@ -31,6 +31,11 @@ class Filter(NamedTuple):
     # member weights, local ones at each grid point), with no inflation piece on them. None: the
     # filter cannot carry a fixed-lag smoother.
     analyse_lagged: Callable | None = None
+    # analyse_augmented(key, state, parameters, y, settings) -> (state, parameters, info): the analysis
+    # that also updates ``parameters`` (N, q), global columns such as a forecast model's estimated
+    # parameters (assimbench/estimation), with the members' weights (with localization: no distance
+    # taper) and no inflation piece on them. None: the filter cannot estimate parameters.
+    analyse_augmented: Callable | None = None
 
 
 class EnsembleState(NamedTuple):

@@ -99,4 +99,5 @@ SPEC = DerivedModelSpec(
     ring=lambda truth: True,
     check=_check,
     traced=("forcing",),
+    estimable=lambda node: ("forcing",) + tuple(f"closure_{i}" for i in range(int(node.degree) + 1)),
 )

@@ -22,7 +22,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from assimbench.io.atomic import atomic_file
-from assimbench.report.words import describe, observation_error_level, setting_word, value_text
+from assimbench.report.words import describe, observation_error_level, point_name, setting_word, value_text
 
 OKABE_ITO = {
     "blue": "#0072B2",
@@ -426,4 +426,55 @@ def error_against_cost(points: list, path: str) -> str:
         ax.set_ylabel(f"time-mean analysis RMSE ({STATE_UNITS})")
         ax.set_title("Accuracy against cost at the best settings (95% intervals)")
         ax.legend(fontsize=7.5, loc="upper left", bbox_to_anchor=(1.02, 1.0))
+        return save_png(fig, path)
+
+
+def estimated_parameters(setting) -> list:
+    """The names of the parameters a setting estimated (its ``estimate.parameters``), or []."""
+    return list(setting.config.get("estimate.parameters") or [])
+
+
+def parameter_trajectories(settings: list, keys: list, path: str) -> str:
+    """One panel per estimated parameter: the analysis-mean estimate of every replicate of every seed
+    (thin) and of their mean (thick), with the mean parameter spread as a band around it, for every
+    setting (colour) that estimated it; the truth's value dashed where the truth has the parameter.
+    ``keys`` are the config keys besides filter and ensemble size that tell the settings apart in the
+    legend."""
+    settings = [s for s in settings if estimated_parameters(s)][: len(PALETTE)]
+    names = list(dict.fromkeys(n for s in settings for n in estimated_parameters(s)))[:MAX_PANELS]
+    with matplotlib.rc_context(STYLE):
+        fig, axes = _axes(len(names), 1, squeeze=False, figsize=(8.0, 2.8 * len(names)), sharex=True,
+                          layout="constrained")
+        labels = [point_name(s.filter, s.members, describe(s.config, keys)) for s in settings]
+        palette = colours(labels)
+        for ax, name in zip(axes[:, 0], names):
+            truth = None
+            for setting, label in zip(settings, labels):
+                if name not in estimated_parameters(setting):
+                    continue
+                column = estimated_parameters(setting).index(name)
+                means = setting.series("parameter_mean")[..., column]  # (replicates of every seed, cycles)
+                spreads = setting.series("parameter_spread")[..., column]
+                time = setting.rows[0].interval * np.arange(1, means.shape[1] + 1)
+                colour = palette[label]
+                for replicate in means:
+                    ax.plot(time, replicate, color=colour, lw=0.5, alpha=0.35)
+                centre, width = means.mean(axis=0), spreads.mean(axis=0)
+                ax.fill_between(time, centre - width, centre + width, color=colour, alpha=0.15, lw=0)
+                seeds = len(setting.seeds)
+                ax.plot(time, centre, color=colour, lw=1.6,
+                        label=f"{label} ({means.shape[0]} replicates, {seeds} seed{'s' if seeds > 1 else ''})")
+                if setting.has(f"estimate_{name}_error"):
+                    truth = float(np.mean(setting.per_replicate(f"estimate_{name}_mean")
+                                           - setting.per_replicate(f"estimate_{name}_error")))
+            if truth is not None:
+                ax.axhline(truth, color="black", lw=1.0, ls="--", label=f"truth's value ({truth:.4g})")
+            burn_in = int(settings[0].config.get("burn_in", 0)) * settings[0].rows[0].interval
+            ax.axvspan(0, burn_in, color="#f0f0f0", lw=0, zorder=0)
+            ax.set_ylabel(setting_word(f"forecast_model.{name}"))
+            ax.set_title(f"Estimated {name.replace('_', ' ')}", fontsize=9)
+            ax.legend(fontsize=7.5, loc="upper left", bbox_to_anchor=(1.02, 1.0))
+        fig.supxlabel(f"time ({TIME_UNITS}); shaded grey: burn-in; band: mean ± mean parameter spread", fontsize=9)
+        fig.suptitle("Parameter estimates over time (analysis mean of the members' values)",
+                     fontsize=10, fontweight="bold")
         return save_png(fig, path)

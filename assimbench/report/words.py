@@ -29,6 +29,12 @@ SETTING_WORDS = {
     "assumed.correlation_length": "assumed correlation length",
     "initial_spread": "initial spread",
     "truth_noise_std": "truth model error",
+    "estimate.parameters": "estimated",
+    "estimate.initial_mean": "initial parameter guess",
+    "estimate.initial_std": "initial parameter spread",
+    "estimate.inflation": "parameter inflation",
+    "estimate.noise": "parameter noise",
+    "estimate.spread_floor": "parameter spread floor",
 }
 
 METRIC_WORDS = {

@@ -36,6 +36,7 @@ from typing import NamedTuple
 import jax
 import jax.numpy as jnp
 
+from assimbench.estimation.parameters import make_member_forecast
 from assimbench.filters.base import Filter
 from assimbench.integrators import make_model_flow
 from assimbench.io.provenance import content_hash
@@ -66,7 +67,9 @@ class TwinSetup(NamedTuple):
     smoother_lag: K > 0 when the filter carries a fixed-lag smoother
     (:mod:`assimbench.filters.smoother`), whose errors at lags 1 .. K are scored;
     filter_operator: the network as the filter sees it when its assumed
-    errors differ from the truth's (None: ``operator``), for the diagnostics.
+    errors differ from the truth's (None: ``operator``), for the diagnostics;
+    estimated: the forecast model's parameters the filter estimates
+    (assimbench/estimation): each member is forecast with its own values.
     """
 
     model: Model
@@ -80,6 +83,7 @@ class TwinSetup(NamedTuple):
     truth_noise: bool = False
     smoother_lag: int = 0
     filter_operator: ObservationOperator | None = None
+    estimated: tuple = ()
 
     @property
     def assimilated_operator(self) -> ObservationOperator:
@@ -202,7 +206,12 @@ def make_cycle(setup: TwinSetup, scalar_names: list):
     ``scalar_names``; with a smoother, ``rmse_smoothed`` and ``spread_smoothed`` (K,) score the
     smoothed ensembles of lags 1 .. K against the truth of cycles k - 1 .. k - K."""
     model, filt, forecaster = setup.model, setup.filter, setup.forecaster
-    forecast_members = make_model_flow(forecaster, setup.forecaster_steps, ensemble=True)
+    if setup.estimated:  # every member with its own parameter values (assimbench/estimation)
+        member_forecast = make_member_forecast(forecaster, setup.forecaster_steps, setup.estimated)
+        forecast = lambda state, params: member_forecast(state.members, state.parameters, params)
+    else:
+        flow = make_model_flow(forecaster, setup.forecaster_steps, ensemble=True)
+        forecast = lambda state, params: flow(state.members, params)
     resolved = model.resolved_size
     if forecaster.size == resolved:
         scored = lambda state: state
@@ -215,7 +224,7 @@ def make_cycle(setup: TwinSetup, scalar_names: list):
         state, recent_truth = carry
         (k, rank_noise), truth, y = inputs
         if filt.runs_model:
-            state = state._replace(members=forecast_members(state.members, settings["forecast_model"]))
+            state = state._replace(members=forecast(state, settings["forecast_model"]))
         analysed, info = filt.analyse(jax.random.fold_in(filter_key, k), state, y, settings)
         out = diagnose(rank_noise, truth, y, scored(state), scored(analysed), info, settings)
         # One packed vector per cycle instead of one stacked output per series:
@@ -229,6 +238,9 @@ def make_cycle(setup: TwinSetup, scalar_names: list):
             out["analysis_mean"] = ensemble_mean_and_spread(scored(analysed))[0]
         if "analysis_ensemble" in fields:
             out["analysis_ensemble"] = scored(analysed).members
+        if setup.estimated:
+            out["parameter_mean"] = analysed.parameters.mean(axis=0)
+            out["parameter_spread"] = jnp.std(analysed.parameters, axis=0, ddof=1)
         if setup.smoother_lag:
             smoothed = analysed.lagged[..., :resolved]  # (K, N, r)
             errors = smoothed.mean(axis=1) - recent_truth
@@ -262,7 +274,8 @@ def make_chunk(setup: TwinSetup, length: int, batched_settings: bool = False):
     """
     filt = setup.filter
     truth_chunk = make_truth_chunk(setup.model, setup.operator, setup.steps_per_cycle, length, setup.truth_noise)
-    catalogue = series_catalogue(setup.diagnostics, filt.members, setup.smoother_lag, setup.operator.outages)
+    catalogue = series_catalogue(setup.diagnostics, filt.members, setup.smoother_lag, setup.operator.outages,
+                                 bool(setup.estimated))
     scalar_names = sorted(name for name, series in catalogue.items() if series.extra_dim is None)
     cycle = make_cycle(setup, scalar_names)
 

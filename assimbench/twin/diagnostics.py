@@ -55,10 +55,12 @@ class Series(NamedTuple):
     extra_dim: str | None = None  # e.g. "rank" for rank histograms
 
 
-def series_catalogue(groups, members: int, smoother_lag: int = 0, outages: bool = False) -> dict:
+def series_catalogue(groups, members: int, smoother_lag: int = 0, outages: bool = False,
+                     estimates: bool = False) -> dict:
     """name -> Series for the always-stored series, the chosen optional groups, with a fixed-lag
-    smoother the smoothed errors at lags 1 .. smoother_lag, and on a network with ``outages`` the
-    number of stations that reported."""
+    smoother the smoothed errors at lags 1 .. smoother_lag, on a network with ``outages`` the
+    number of stations that reported, and when the filter ``estimates`` parameters their analysis
+    mean and spread."""
     out = {
         "rmse_forecast": Series("RMSE of the forecast ensemble mean against the truth", "state units"),
         "rmse_analysis": Series("RMSE of the analysis ensemble mean against the truth", "state units"),
@@ -104,6 +106,11 @@ def series_catalogue(groups, members: int, smoother_lag: int = 0, outages: bool 
                                       "its truth", "state units", "lag")
         out["spread_smoothed"] = Series("spread of the smoothed ensemble of the cycle `lag` cycles before",
                                         "state units", "lag")
+    if estimates:
+        out["parameter_mean"] = Series("analysis ensemble mean of each estimated parameter", "parameter units",
+                                       "parameter")
+        out["parameter_spread"] = Series("analysis spread ((N - 1)-normalised std) of each estimated parameter",
+                                         "parameter units", "parameter")
     if "increment" in groups:
         out["increment_norm"] = Series("root mean square over variables of the analysis increment of the mean", "state units")
     return out

@@ -19,11 +19,12 @@ def layouts_of(setup: TwinSetup) -> tuple:
     """(layouts, coordinates) of every dataset this setup stores."""
     members = setup.filter.members
     layouts = {}
-    for name, series in series_catalogue(setup.diagnostics, members, setup.smoother_lag, setup.operator.outages).items():
+    for name, series in series_catalogue(setup.diagnostics, members, setup.smoother_lag, setup.operator.outages,
+                                         bool(setup.estimated)).items():
         if series.extra_dim is None:
             layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle"))
-        elif series.extra_dim == "lag":
-            layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle", "lag"))
+        elif series.extra_dim in ("lag", "parameter"):
+            layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle", series.extra_dim))
         else:  # rank counts are integers; per-station sums are not
             kind = np.int32 if series.extra_dim == "rank" else np.float64
             layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle", series.extra_dim), kind)
@@ -34,6 +35,8 @@ def layouts_of(setup: TwinSetup) -> tuple:
         "member": np.arange(members),
         "rank": np.arange(members + 1),
         "lag": np.arange(1, setup.smoother_lag + 1),
+        # Names as bytes: HDF5 and netCDF readers take fixed-length byte strings.
+        "parameter": np.array(setup.estimated, dtype="S"),
     }
     used = {d for layout in layouts.values() for d in layout.dims[2:]}
     return layouts, {d: v for d, v in coordinates.items() if d in used}

@@ -55,23 +55,25 @@ class Chunk(NamedTuple):
 
 class MeansSink:
     """Time means after burn-in (with batch-means intervals) and, if asked, the whole series in memory.
-    A series with a ``lag`` axis, (replicates, L, K), is averaged per lag as ``<name>_lag<l>``; a
-    series with ``shares`` = {name: values} also as the share of cycles at each value,
-    ``<name>_share<v>`` (the time mean of an indicator: a distribution with intervals)."""
+    A series with a third axis, (replicates, L, K), listed in ``columns`` = {name: K mean names} is
+    averaged column by column under those names (``<name>_lag<l>`` per lag of a smoother,
+    ``estimate_<p>_mean`` per estimated parameter); a series with ``shares`` = {name: values} also
+    as the share of cycles at each value, ``<name>_share<v>`` (the time mean of an indicator: a
+    distribution with intervals)."""
 
-    def __init__(self, plan, names: list, keep_series: bool, lag_names: tuple = (), shares: dict | None = None):
+    def __init__(self, plan, names: list, keep_series: bool, columns: dict | None = None, shares: dict | None = None):
         self.means = TimeMeans(plan.lanes * plan.replicates, plan.cycles, plan.burn_in, gapped=GAPPED)
-        self.names = list(names) + list(lag_names)
-        self.lag_names = set(lag_names)
+        self.columns = columns or {}
+        self.names = list(names) + list(self.columns)
         self.shares = shares or {}
         self.kept = {name: [] for name in self.names} if keep_series else None
 
     def add(self, chunk: Chunk) -> None:
         for name in self.names:
             values = chunk.series[name]
-            if name in self.lag_names:
-                for lag in range(values.shape[2]):
-                    self.means.add(f"{name}_lag{lag + 1}", values[:, :, lag], chunk.first_cycle)
+            if name in self.columns:
+                for column, mean_name in enumerate(self.columns[name]):
+                    self.means.add(mean_name, values[:, :, column], chunk.first_cycle)
             else:
                 self.means.add(name, values, chunk.first_cycle)
             for value in self.shares.get(name, ()):
@@ -211,6 +213,31 @@ def _summaries(plan, means: MeansSink, scalar_names: list, batch: Batch) -> tupl
     return summary, per_replicate
 
 
+def column_means(layouts: dict, coordinates: dict) -> dict:
+    """{series: the names of its column means} for the series with a lag or a parameter axis."""
+    out = {}
+    for name, layout in layouts.items():
+        if layout.dims[2:] == ("lag",):
+            out[name] = [f"{name}_lag{lag}" for lag in coordinates["lag"]]
+        elif layout.dims[2:] == ("parameter",):
+            what = name.removeprefix("parameter_")
+            out[name] = [f"estimate_{p.decode()}_{what}" for p in coordinates["parameter"]]
+    return out
+
+
+def estimate_errors(plan, summary: dict) -> None:
+    """``estimate_<p>_error`` (with _low, _high) = the time-mean estimate minus the truth model's value,
+    for every estimated parameter the truth model has (a scalar of the same name)."""
+    truth = plan.settings["model"]
+    for name in plan.setup.estimated:
+        if name not in truth or np.ndim(truth[name]) > (1 if plan.batched else 0):
+            continue
+        values = np.asarray(truth[name])
+        value = values.reshape(plan.lanes, plan.replicates)[:, 0] if plan.batched else float(values)
+        for suffix in ("", "_low", "_high"):
+            summary[f"estimate_{name}_error{suffix}"] = summary[f"estimate_{name}_mean{suffix}"] - value
+
+
 def station_means(means, kept_cycles: int, batch) -> dict:
     """The by_station group's time means after burn-in, each (replicates, stations) (with lanes, a
     leading lane axis): every sum over the cycles a station reported divided by their number, and
@@ -230,16 +257,15 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
     batch = Batch(plan.lanes, plan.replicates, plan.batched)
     scalar_names = [n for n, lay in plan.layouts.items() if lay.dims == ("replicate", "cycle")]
     count_names = [n for n, lay in plan.layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "rank"]
-    lag_names = [n for n, lay in plan.layouts.items() if len(lay.dims) == 3 and lay.dims[2] == "lag"]
     station_names = [n for n in plan.layouts if n in STATION_SUMS]
-    lagged_means = [f"{n}_lag{lag}" for n in lag_names for lag in plan.coordinates.get("lag", ())]
+    columns = column_means(plan.layouts, plan.coordinates)
     shares = {"iterations": plan.choice.filter.step_counts(plan.config.filter)} if "iterations" in scalar_names else {}
     share_means = [f"{n}_share{value}" for n, values in shares.items() for value in values]
     length = min(plan.chunk_cycles, plan.cycles)
     workers = worker_count(plan.workers, plan.lanes * plan.replicates, plan.cycles)
     compile_seconds, outputs = _in_workers(plan, length, workers) if workers > 1 else _in_process(plan, length)
     startup_seconds = time.perf_counter() - started
-    means = MeansSink(plan, scalar_names + count_names + station_names, keep_series, tuple(lag_names), shares)
+    means = MeansSink(plan, scalar_names + count_names + station_names, keep_series, columns, shares)
     monitor = DivergenceMonitor(plan, scalar_names)
     sinks = [means, monitor]
     writer = WriterSink(plan, output, batch) if output is not None else None
@@ -250,7 +276,10 @@ def run_plan(plan, output: str | None = None, progress: Callable | None = None, 
         for piece in _chunks(plan, outputs, clock):
             for sink in sinks:
                 sink.add(piece)
-        summary, per_replicate = _summaries(plan, means, scalar_names + lagged_means + share_means, batch)
+        column_names = [name for names in columns.values() for name in names]
+        summary, per_replicate = _summaries(plan, means, scalar_names + column_names + share_means, batch)
+        if "parameter_mean" in columns:
+            estimate_errors(plan, summary)
         if station_names:
             per_replicate.update(station_means(means.means, plan.cycles - plan.burn_in, batch))
         first_bad = batch.split(monitor.first_bad)

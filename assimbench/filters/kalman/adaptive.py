@@ -90,13 +90,13 @@ def update_inflation(rho_b, obs_members, y, error_var, prior_variance, local=Non
 
 
 def adaptive_ensemble_filter(name: str, members: int, update, operator, pieces=frozenset(),
-                             local_windows=None, state_size: int | None = None) -> Filter:
+                             local_windows=None, state_size: int | None = None, global_update=None) -> Filter:
     """A Filter from ``update(key, prior, y, settings)`` on (N, n) arrays with the adaptive factor
     in place of the fixed ``filter.inflation``, and the other inflation pieces composed around it.
 
     ``local_windows(settings) -> (index, weight)``, each (n, K), switches on the local form (one
     factor per grid point of a ``state_size`` state); without it one global factor is estimated."""
-    analyse_members = with_inflation(update, pieces)
+    analyse_members = with_inflation(update, pieces, global_update)
 
     def init(key, initial_ensemble, settings):
         del key
@@ -126,8 +126,14 @@ def adaptive_ensemble_filter(name: str, members: int, update, operator, pieces=f
         posterior, lagged, info = analyse_members(key, state.members, y, settings, lagged)
         return AdaptiveState(members=posterior, rho=rho), lagged, {**info, "inflation": jnp.mean(jnp.sqrt(rho))}
 
+    def analyse_augmented(key, state, parameters, y, settings):
+        # As with lagged columns: the factor inflates the current forecast, not the parameters.
+        rho, settings = adapted(state, y, settings)
+        posterior, parameters, info = analyse_members(key, state.members, y, settings, parameters=parameters)
+        return AdaptiveState(members=posterior, rho=rho), parameters, {**info, "inflation": jnp.mean(jnp.sqrt(rho))}
+
     return Filter(name=name, members=members, init=init, analyse=analyse, reports_inflation=True,
-                  analyse_lagged=analyse_lagged)
+                  analyse_lagged=analyse_lagged, analyse_augmented=analyse_augmented)
 
 
 @dataclass

@@ -6,6 +6,8 @@ gain is tapered elementwise by the Gaspari-Cohn weight of the distance from
 the observation (Houtekamer & Mitchell 2001, Mon. Wea. Rev. 129). The
 predicted observations h(x_i) are carried as extra state components and
 updated with the state, so a nonlinear h is evaluated once per analysis.
+Estimated parameters (assimbench/estimation) are global: they are carried as
+further state components with taper weight 1 for every observation.
 """
 
 from dataclasses import dataclass
@@ -58,13 +60,27 @@ def make_ensrf(model, operator, members: int, radius: float | None, pieces=froze
     positions = np.concatenate([np.arange(size, dtype=np.float64), operator.positions])
     distance = ring_distance(operator.positions[:, None], positions[None, :], size)  # (p, n + p)
 
+    def tapers(settings):
+        """(p, n + p): each observation's weight on the state and on the predicted observations."""
+        if radius is None:
+            return jnp.ones(distance.shape)
+        return gaspari_cohn(distance / settings["filter"]["radius"])
+
+    def global_update(key, prior, parameters, y, settings):
+        del key
+        white = operator.whiten(settings, y)
+        taper = tapers(settings)
+        # The parameters sit between the state and the predicted observations, untapered.
+        taper = jnp.concatenate([taper[:, :size], jnp.ones((taper.shape[0], parameters.shape[1])), taper[:, size:]],
+                                axis=1)
+        both = ensrf_analysis(jnp.concatenate([prior, parameters], axis=1), white.observe(prior), white.obs,
+                              white.variance, taper)
+        return both[:, :size], both[:, size:], {}
+
     def update(key, prior, y, settings):
         del key
         white = operator.whiten(settings, y)
-        if radius is None:
-            taper = jnp.ones(distance.shape)
-        else:
-            taper = gaspari_cohn(distance / settings["filter"]["radius"])
+        taper = tapers(settings)
         blocks = prior.shape[1] // size
         if blocks > 1:  # a fixed-lag smoother's earlier states: each variable tapered at its own grid point
             taper = jnp.concatenate([jnp.tile(taper[:, :size], (1, blocks)), taper[:, size:]], axis=1)
@@ -72,7 +88,7 @@ def make_ensrf(model, operator, members: int, radius: float | None, pieces=froze
         # position of the station of its row (row j of L^-1 mixes stations 1..j, mostly j).
         return ensrf_analysis(prior, white.observe(prior), white.obs, white.variance, taper), {}
 
-    return inflation.ensemble_filter("ensrf", members, update, pieces)
+    return inflation.ensemble_filter("ensrf", members, update, pieces, global_update=global_update)
 
 
 @dataclass
@@ -94,4 +110,5 @@ SPEC = FilterSpec(
     widest=inflation.WIDEST + ("radius",),
     kalman_exact=True,
     smoothable=lambda node: True,
+    estimates=True,
 )

@@ -85,4 +85,5 @@ SPEC = FilterSpec(
     kalman_exact=True,
     reports_inflation=lambda node: bool(node.adaptive),
     smoothable=lambda node: True,
+    estimates=True,
 )

@@ -56,7 +56,19 @@ def relax_to_prior_spread(prior: jax.Array, posterior: jax.Array, alpha) -> jax.
 PIECES = ("additive", "rtpp", "rtps")
 
 
-def with_inflation(update, pieces=frozenset()):
+def riding_along(update):
+    """``global_update(key, prior, columns, y, settings) -> (posterior, columns, info)`` for a filter
+    without localization: the columns (N, q) are appended to the state and transformed with it."""
+
+    def global_update(key, prior, columns, y, settings):
+        size = prior.shape[1]
+        both, info = update(key, jnp.concatenate([prior, columns], axis=1), y, settings)
+        return both[:, :size], both[:, size:], info
+
+    return global_update
+
+
+def with_inflation(update, pieces=frozenset(), global_update=None):
     """Wrap ``update(key, prior, y, settings) -> (posterior, info)`` with the inflation pieces.
 
     Multiplicative inflation (``settings["filter"]["inflation"]``) is always
@@ -69,20 +81,27 @@ def with_inflation(update, pieces=frozenset()):
     (posterior, info), or with ``lagged`` (N, m), columns of earlier states
     that ``update`` transforms beside the members (a fixed-lag smoother),
     (posterior, lagged posterior, info): the pieces act on the members only,
-    since inflation stands for the current forecast's missing spread.
+    since inflation stands for the current forecast's missing spread. With ``parameters`` (N, q),
+    global columns every analysis updates with the members' weights (``global_update``, by default
+    :func:`riding_along`), it returns (posterior, parameters posterior, info); again no piece acts on
+    them (their spread is kept by assimbench/estimation).
     """
     unknown = set(pieces) - set(PIECES)
     if unknown:
         raise ValueError(f"unknown inflation pieces {sorted(unknown)}; known: {PIECES}")
 
-    def analyse(key, members, y, settings, lagged=None):
+    global_update = riding_along(update) if global_update is None else global_update
+
+    def analyse(key, members, y, settings, lagged=None, parameters=None):
         f = settings["filter"]
         prior = inflate_anomalies(members, f["inflation"])
         update_key = key
         if "additive" in pieces:  # split only when needed: a split costs a threefry call per cycle
             noise_key, update_key = jax.random.split(key)
             prior = add_centred_noise(noise_key, prior, f["additive_std"])
-        if lagged is None:
+        if parameters is not None:
+            posterior, lagged, info = global_update(update_key, prior, parameters, y, settings)
+        elif lagged is None:
             posterior, info = update(update_key, prior, y, settings)
         else:
             size = members.shape[1]
@@ -97,12 +116,15 @@ def with_inflation(update, pieces=frozenset()):
     return analyse
 
 
-def ensemble_filter(name: str, members: int, update, pieces=frozenset(), reports_inflation: bool = False) -> Filter:
+def ensemble_filter(name: str, members: int, update, pieces=frozenset(), reports_inflation: bool = False,
+                    global_update=None) -> Filter:
     """A Filter from ``update(key, prior, y, settings) -> (posterior, info)`` on (N, n) arrays,
     with every inflation piece of this module composed around it. ``update`` must take states of
     any width whose first n columns are the model state (the observation operator reads only
-    those): the lagged columns of a fixed-lag smoother ride along (``Filter.analyse_lagged``)."""
-    analyse_members = with_inflation(update, pieces)
+    those): the lagged columns of a fixed-lag smoother ride along (``Filter.analyse_lagged``), and
+    so do estimated parameters (``Filter.analyse_augmented``) unless the filter localizes and gives
+    its own ``global_update`` (see :func:`with_inflation`)."""
+    analyse_members = with_inflation(update, pieces, global_update)
 
     def analyse(key, state, y, settings):
         posterior, info = analyse_members(key, state.members, y, settings)
@@ -112,8 +134,13 @@ def ensemble_filter(name: str, members: int, update, pieces=frozenset(), reports
         posterior, lagged, info = analyse_members(key, state.members, y, settings, lagged)
         return EnsembleState(members=posterior), lagged, info
 
+    def analyse_augmented(key, state, parameters, y, settings):
+        posterior, parameters, info = analyse_members(key, state.members, y, settings, parameters=parameters)
+        return EnsembleState(members=posterior), parameters, info
+
     return Filter(name=name, members=members, init=keep_ensemble, analyse=analyse,
-                  reports_inflation=reports_inflation, analyse_lagged=analyse_lagged)
+                  reports_inflation=reports_inflation, analyse_lagged=analyse_lagged,
+                  analyse_augmented=analyse_augmented)
 
 
 @dataclass
@@ -159,4 +186,5 @@ def inflation_settings(node) -> dict:
 
 # The spec fields of an ensemble filter whose only settings are the inflation pieces.
 INFLATION_SPEC_FIELDS = {"settings": inflation_settings, "check": lambda c, model: check_inflation(c),
-                         "traced": INFLATION_KEYS, "widest": WIDEST, "smoothable": lambda node: True}
+                         "traced": INFLATION_KEYS, "widest": WIDEST, "smoothable": lambda node: True,
+                         "estimates": True}

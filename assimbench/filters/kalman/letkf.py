@@ -15,6 +15,18 @@ columns of the observations grid point g sees) in the symmetric form
 which is Hunt et al.'s weighting rho_g / r when R_g is diagonal: the
 tapered anomalies and innovations are whitened by the Cholesky factor of
 R_g (a choice of the bench; tapering R_g^-1 entry by entry is another).
+
+Estimated parameters (assimbench/estimation) are global: every local
+analysis g updates them with its own weights and no distance taper,
+p_a,g = pbar + P'^T (wbar_g + W_g), and the analysis is the mean of those n
+local analyses over the grid points,
+
+    p_a = pbar + P'^T mean_g (wbar_g 1^T + W_g),
+
+the spatially averaged update of global parameters in local ensemble
+filters (reviewed by Ruiz, Pulido & Miyoshi 2013, J. Meteor. Soc. Japan 91,
+79-99; from memory). It is linear in the weights, so one (N, N) mean of the
+local transforms serves every parameter.
 """
 
 from dataclasses import dataclass
@@ -141,6 +153,16 @@ def local_systems(space, y, error_var, local_index, local_weight, local_cov=None
     return precision, jnp.einsum("gik,gk->gi", scaled, (y - space.obs_mean)[local_index])
 
 
+def local_transforms(members, obs_members, y, error_var, local_index, local_weight, solver, local_cov=None):
+    """Every grid point's weights (n, N, N), wbar_g 1^T + W_g, of :func:`letkf_analysis`:
+    x_a[i, g] = xbar_g + sum_j weights[g, j, i] X[j, g]; ``members`` (N, n)."""
+    n_members = members.shape[0]
+    precision, rhs = local_systems(ensemble_space(members, obs_members, 1.0), y, error_var, local_index,
+                                   local_weight, local_cov)
+    solved = solve_precision(precision, n_members - 1.0, solver)
+    return solved.apply_inverse(rhs)[:, :, None] + solved.inverse_root(jnp.sqrt(n_members - 1.0))
+
+
 def _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight, solver, local_cov=None):
     """:func:`letkf_analysis` of B blocks of n grid points, (N, B n): the first block is analysed and
     every block takes the first block's local weights and transforms, grid point by grid point."""
@@ -149,13 +171,27 @@ def _letkf_blocks(members, obs_members, y, error_var, local_index, local_weight,
     blocks = members.reshape(n_members, width // n_grid, n_grid)
     mean = blocks.mean(axis=0)  # (B, n)
     anomalies = blocks - mean
-    precision, rhs = local_systems(ensemble_space(members[:, :n_grid], obs_members, 1.0), y, error_var,
-                                   local_index, local_weight, local_cov)
-    solved = solve_precision(precision, n_members - 1.0, solver)
-    weights = solved.apply_inverse(rhs)[:, :, None] + solved.inverse_root(jnp.sqrt(n_members - 1.0))  # (n, N, N)
+    weights = local_transforms(members[:, :n_grid], obs_members, y, error_var, local_index, local_weight, solver,
+                               local_cov)
     # x_a[i, b, g] = mean[b, g] + sum_j (wbar_g,j + W_g,ji) X[j, b, g]
     analysed = mean + jnp.einsum("gji,jbg->ibg", weights, anomalies)
     return analysed.reshape(n_members, width)
+
+
+def letkf_with_parameters(members, parameters, white, local_index, local_weight, local_mask, solver: str = "eigh"):
+    """(analysed members (N, n), analysed parameters (N, q)): the LETKF analysis of ``members`` in the
+    frame ``white`` (:func:`letkf_whitened`), and of the global ``parameters`` with the mean over grid
+    points of the local transforms (module docstring)."""
+    if white.covariance is None:
+        args = (white.observe(members), white.obs, white.variance, local_index, local_weight, solver)
+    else:
+        args = (white.operator(members), white.y, 1.0, local_index, local_weight, solver,
+                local_error_blocks(white.covariance, local_index, local_mask))
+    weights = local_transforms(members, *args)  # (n, N, N)
+    mean = members.mean(axis=0)
+    analysed = mean + jnp.einsum("gji,jg->ig", weights, members - mean)
+    centre = parameters.mean(axis=0)
+    return analysed, centre + weights.mean(axis=0).T @ (parameters - centre)
 
 
 def make_letkf(model, operator, members: int, radius: float | None, pieces=frozenset(),
@@ -174,10 +210,16 @@ def make_letkf(model, operator, members: int, radius: float | None, pieces=froze
         del key
         return letkf_whitened(prior, operator.whiten(settings, y), index, local_weight(settings), mask, solver), {}
 
+    def global_update(key, prior, parameters, y, settings):
+        del key
+        white = operator.whiten(settings, y)
+        return *letkf_with_parameters(prior, parameters, white, index, local_weight(settings), mask, solver), {}
+
     if adaptive:  # one factor per grid point, from the observations it sees (assimbench/filters/adaptive.py)
         windows = lambda settings: (index, local_weight(settings))
-        return adaptive_ensemble_filter("letkf", members, update, operator, pieces, windows, model.size)
-    return ensemble_filter("letkf", members, update, pieces)
+        return adaptive_ensemble_filter("letkf", members, update, operator, pieces, windows, model.size,
+                                        global_update)
+    return ensemble_filter("letkf", members, update, pieces, global_update=global_update)
 
 
 @dataclass
@@ -206,4 +248,5 @@ SPEC = FilterSpec(
     kalman_exact=True,
     reports_inflation=lambda node: bool(node.adaptive),
     smoothable=lambda node: True,
+    estimates=True,
 )

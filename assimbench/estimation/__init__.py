@@ -1,0 +1,1 @@
+"""Joint state and parameter estimation by state augmentation (see augmented.py)."""
