@@ -169,11 +169,16 @@ def build_report(paths: list, out: str, failing: FailingLevel = DEFAULT_LEVEL) -
     lines += ["## Lost settings", "", *(lost or ["None."]), ""]
     shown_columns = [c for c in columns if not c.endswith(("_low", "_high")) and c not in
                      ("rmse_forecast", "crps_analysis", "lost_reasons")]
-    readable = [{**r, "experiment": f"e{r['experiment']}", "rmse_analysis": with_interval(r["rmse_analysis"], r["rmse_analysis_low"], r["rmse_analysis_high"])}
-                for r in records]
+    with_intervals = ["rmse_analysis"] + [c for c in columns if c.startswith("estimate_") and c.endswith("_mean")]
+    readable = [{**r, "experiment": f"e{r['experiment']}",
+                 **{c: with_interval(r[c], r[c + "_low"], r[c + "_high"]) for c in with_intervals}} for r in records]
     headers = {"rmse_analysis": "analysis RMSE (95%)", "spread_analysis": "analysis spread",
                SPREAD_OVER_RMSE: "spread / RMSE", "innovation_ratio": "innovation ratio",
                "lost_replicates": "lost replicates"}
+    for column in columns:  # estimate_forcing_mean -> "forcing estimate (95%)"
+        if column.startswith("estimate_") and column.endswith(("_mean", "_spread")):
+            parameter, _, kind = column[len("estimate_"):].rpartition("_")
+            headers[column] = f"{parameter} estimate (95%)" if kind == "mean" else f"{parameter} spread"
     lines += ["## Every setting, pooled over seeds (all columns: summary.csv; every run: runs.csv)", "",
               to_markdown(shown_columns, readable, headers)]
     if problems or notes:

@@ -443,7 +443,7 @@ def parameter_trajectories(settings: list, keys: list, path: str) -> str:
     settings = [s for s in settings if estimated_parameters(s)][: len(PALETTE)]
     names = list(dict.fromkeys(n for s in settings for n in estimated_parameters(s)))[:MAX_PANELS]
     with matplotlib.rc_context(STYLE):
-        fig, axes = _axes(len(names), 1, squeeze=False, figsize=(8.0, 2.8 * len(names)), sharex=True,
+        fig, axes = _axes(len(names), 1, squeeze=False, figsize=(9.0, 2.2 + 2.6 * len(names)), sharex=True,
                           layout="constrained")
         labels = [point_name(s.filter, s.members, describe(s.config, keys)) for s in settings]
         palette = colours(labels)
@@ -460,21 +460,31 @@ def parameter_trajectories(settings: list, keys: list, path: str) -> str:
                 for replicate in means:
                     ax.plot(time, replicate, color=colour, lw=0.5, alpha=0.35)
                 centre, width = means.mean(axis=0), spreads.mean(axis=0)
-                ax.fill_between(time, centre - width, centre + width, color=colour, alpha=0.15, lw=0)
+                # The band is drawn as its edges: filled bands of several settings would hide each other.
+                for edge in (centre - width, centre + width):
+                    ax.plot(time, edge, color=colour, lw=0.8, ls=":")
                 seeds = len(setting.seeds)
                 ax.plot(time, centre, color=colour, lw=1.6,
                         label=f"{label} ({means.shape[0]} replicates, {seeds} seed{'s' if seeds > 1 else ''})")
-                if setting.has(f"estimate_{name}_error"):
-                    truth = float(np.mean(setting.per_replicate(f"estimate_{name}_mean")
-                                           - setting.per_replicate(f"estimate_{name}_error")))
+                summary = setting.rows[0].summary
+                if f"estimate_{name}_error" in summary:  # the truth has the parameter: mean - error is its value
+                    truth = float(summary[f"estimate_{name}_mean"] - summary[f"estimate_{name}_error"])
             if truth is not None:
-                ax.axhline(truth, color="black", lw=1.0, ls="--", label=f"truth's value ({truth:.4g})")
+                ax.axhline(truth, color="black", lw=1.0, ls="--", label="the truth's value")
+                ax.annotate(f"truth {truth:.4g}", (1.0, truth), xycoords=("axes fraction", "data"), fontsize=7.5,
+                            ha="right", va="bottom")
             burn_in = int(settings[0].config.get("burn_in", 0)) * settings[0].rows[0].interval
             ax.axvspan(0, burn_in, color="#f0f0f0", lw=0, zorder=0)
             ax.set_ylabel(setting_word(f"forecast_model.{name}"))
             ax.set_title(f"Estimated {name.replace('_', ' ')}", fontsize=9)
-            ax.legend(fontsize=7.5, loc="upper left", bbox_to_anchor=(1.02, 1.0))
-        fig.supxlabel(f"time ({TIME_UNITS}); shaded grey: burn-in; band: mean ± mean parameter spread", fontsize=9)
-        fig.suptitle("Parameter estimates over time (analysis mean of the members' values)",
+        shown = {}
+        for ax in axes[:, 0]:
+            for handle, text in zip(*ax.get_legend_handles_labels()):
+                shown.setdefault(text if not text.startswith("truth") else "the truth's value", handle)
+        handles, texts = list(shown.values()), list(shown)
+        fig.legend(handles, texts, loc="outside lower center", ncols=1, fontsize=7.5)
+        axes[-1, 0].set_xlabel(f"time ({TIME_UNITS}); shaded: burn-in")
+        fig.suptitle("Parameter estimates over time: the analysis mean of the members' values\n(thick: mean of the "
+                     "replicates; thin: each replicate; dotted: that mean ± the mean parameter spread)",
                      fontsize=10, fontweight="bold")
         return save_png(fig, path)

@@ -23,12 +23,24 @@ METRICS = ("rmse_analysis", "spread_analysis", "rmse_forecast", "crps_analysis",
 SPREAD_OVER_RMSE = "spread_over_rmse_analysis"
 
 
+def estimate_metrics(settings: list) -> tuple:
+    """The time means of estimated parameters any setting holds: ``estimate_<p>_mean`` and
+    ``estimate_<p>_spread`` for every parameter p, in the order first met (a setting without one
+    shows NaN)."""
+    names = {}
+    for s in settings:
+        for parameter in s.config.get("estimate.parameters") or ():
+            names.update({f"estimate_{parameter}_mean": None, f"estimate_{parameter}_spread": None})
+    return tuple(names)
+
+
 def settings_table(settings: list) -> tuple:
     """(columns, records): experiment, filter, members, the varied settings, seeds, replicates, every
-    metric with its 95% limits, the spread / RMSE ratio of the time means, lost replicates and why."""
+    metric (and every estimated parameter's time-mean estimate and spread) with its 95% limits, the spread / RMSE ratio of the time means, lost replicates and why."""
     keys = varied_settings([s.rows[0] for s in settings])
     columns = ["experiment", "filter", "members"] + keys + ["seeds", "replicates"]
-    for name in METRICS:
+    metrics = METRICS + estimate_metrics(settings)
+    for name in metrics:
         columns += [name, name + "_low", name + "_high"]
     columns += [SPREAD_OVER_RMSE, "lost_replicates", "lost_reasons"]
     records = []
@@ -38,7 +50,7 @@ def settings_table(settings: list) -> tuple:
                   SPREAD_OVER_RMSE: s.spread_over_rmse(), "lost_replicates": s.lost,
                   "lost_reasons": "; ".join(s.lost_reasons)}
         record.update({k: s.config.get(k, "") for k in keys})
-        for name in METRICS:
+        for name in metrics:
             record[name], record[name + "_low"], record[name + "_high"] = s.estimate(name)
         records.append(record)
     records.sort(key=lambda r: (r["experiment"], r["filter"], r["members"] or 0, *(str(r[k]) for k in keys)))

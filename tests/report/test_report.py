@@ -250,3 +250,29 @@ def test_a_sweep_of_a_smoother_and_an_iterative_filter_gets_its_figures_and_one_
     assert lags == {"etkf": [1], "ienks": [1]}
     costs = {s.filter: figures.cycle_cost(s) for s in settings}
     assert costs["etkf"] == 3 and costs["ienks"] > 2 * 3  # at least one step and the final forecast
+
+
+def test_estimated_parameters_get_their_pooled_estimate_and_a_figure_of_their_trajectories(tmp_path, capsys):
+    """Two seeds of an ETKF estimating the ring's forcing under two spread floors: summary.csv holds
+    the estimate pooled over every replicate of both seeds (the mean of the per-replicate time
+    means), report.md shows it with its interval, and the trajectories figure is drawn."""
+    common = BASE + ["forecast_model=lorenz96", "forecast_model.size=12", "estimate.parameters=[forcing]",
+                     "estimate.initial_mean=7", "estimate.initial_std=1", "lanes.estimate.spread_floor=[0.1,0.3]"]
+    for seed in (1, 2):
+        assimbench.run(common + [f"seed={seed}"], output=str(tmp_path / "sweep" / f"s{seed}" / "result.h5"))
+    out = tmp_path / "report"
+    assert command.main([str(tmp_path / "sweep"), "--out", str(out)]) == 0
+    table = _read_csv(out / "summary.csv")
+    assert len(table) == 2 and all(r["seeds"] == "1 2" for r in table)
+    rows = _runs(tmp_path / "sweep")
+    for record in table:
+        floor = float(record["estimate.spread_floor"])
+        mine = [r for r in rows if r.config["estimate.spread_floor"] == floor]
+        per_replicate = np.concatenate([r.per_replicate["estimate_forcing_mean"] for r in mine])
+        assert float(record["estimate_forcing_mean"]) == pytest.approx(per_replicate.mean(), rel=1e-12)
+        assert float(record["estimate_forcing_mean_low"]) < float(record["estimate_forcing_mean"])
+        assert float(record["estimate_forcing_spread"]) >= floor - 1e-9  # the floor is a fraction of initial_std 1
+    assert "forcing estimate (95%)" in (out / "report.md").read_text()
+    assert (out / "parameter_trajectories_e1.png").read_bytes()[:8] == PNG_MAGIC
+    settings, _ = pool(rows)
+    assert [figures.estimated_parameters(s) for s in settings] == [["forcing"], ["forcing"]]
