@@ -222,6 +222,8 @@ def test_a_lane_of_spread_keeping_equals_the_single_run():
          ["estimate.initial_mean", "one number"]),
         (["estimate.parameters=[forcing]", "estimate.initial_std=1", "filter=4dvar"],
          ["filter 4dvar", "etkf", "letkf"]),
+        (["estimate.parameters=[forcing]", "estimate.initial_std=1", "filter=ienks"], ["filter ienks", "denkf"]),
+        (["estimate.parameters=[forcing]", "estimate.initial_std=1", "filter=sir"], ["filter sir", "enkfn"]),
         (["estimate.parameters=[forcing]", "estimate.initial_std=1", "smoother.lag=2"], ["smoother.lag=2"]),
         (["estimate.parameters=[forcing]", "estimate.initial_std=1", "analysis_every=2"], ["analysis_every=2"]),
         (["estimate.parameters=[forcing]", "estimate.initial_std=1", "estimate.inflation=0.9"],
