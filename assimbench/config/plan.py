@@ -95,12 +95,12 @@ def build_setup(cfg, choice: Choice) -> TwinSetup:
     interval = float(cfg.observation.interval)
     forecast_steps = steps_per_cycle(interval, forecaster.dt)
     lag = int(cfg.smoother.lag)
-    filt = choice.filter.build(cfg.filter, FilterContext(forecaster, view, forecast_steps, lag))
+    names = estimated(cfg.estimate)
+    filt = choice.filter.build(cfg.filter, FilterContext(forecaster, view, forecast_steps, lag, names))
     if lag > 0 and filt.analyse_lagged is not None:  # otherwise the filter smooths by itself
         filt = with_fixed_lag(filt, lag)
     if int(cfg.get("analysis_every", 1)) > 1:
         filt = every_kth_analysis(filt, int(cfg.analysis_every))
-    names = estimated(cfg.estimate)
     if names:
         filt = with_parameters(filt, len(names), frozenset(k for k in ESTIMATE_WIDEST if float(cfg.estimate[k]) > 0))
     available = choice.diagnostic_groups(cfg.filter)

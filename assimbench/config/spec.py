@@ -105,13 +105,16 @@ class NetworkSpec:
 
 class FilterContext(NamedTuple):
     """What a filter is built against: the forecast model, the observation operator, the
-    forecast model's steps per analysis interval, and the smoother's lag (``smoother.lag``) for a
-    filter that smooths by itself (its state then carries ``lagged``)."""
+    forecast model's steps per analysis interval, the smoother's lag (``smoother.lag``) for a
+    filter that smooths by itself (its state then carries ``lagged``), and the names of the forecast
+    model's parameters estimated with the state, for a filter that forecasts by itself (the IEnKS
+    over its window)."""
 
     model: object
     operator: object
     steps_per_interval: int
     smoother_lag: int = 0
+    estimated: tuple = ()
 
 
 @dataclass(frozen=True)

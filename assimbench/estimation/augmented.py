@@ -9,7 +9,11 @@ predicted observations (common practice; e.g. Evensen 2009, Data
 Assimilation: The Ensemble Kalman Filter, 2nd ed., Springer, the chapter on
 parameter estimation; from memory). Parameters are global: a localizing filter updates them with no
 distance taper (the LETKF with the mean of its local transforms, the serial
-EnSRF with weight 1 for every observation). The state's inflation pieces do
+EnSRF with weight 1 for every observation). The IEnKS searches the augmented
+start of its window, each member forecast through the window with its own
+values (so the spread keeping before an analysis acts on the parameters the
+window is forecast with; with a shift S > 1 it acts at every cycle, S times
+between two analyses). The state's inflation pieces do
 not act on them; their spread is kept by the pieces of this module, in this
 order:
 

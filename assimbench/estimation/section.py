@@ -82,9 +82,9 @@ def check_estimate(node, names_allowed: tuple, filter_spec, able_filters: list, 
     if len(set(chosen)) != len(chosen):
         c.fail("parameters", shown, "each parameter once")
     if not filter_spec.estimates:
-        c.fail("parameters", shown, f"[] with filter {filter_spec.name}, which does not carry parameters (no "
-                                    "parameter control variable, window or particle weights for them yet); the "
-                                    "filters that estimate parameters: " + ", ".join(able_filters))
+        c.fail("parameters", shown, f"[] with filter {filter_spec.name}, which does not carry parameters (the "
+                                    "variational filters have no parameter control variable, the particle filter "
+                                    "no parameter particles, yet); the filters that estimate parameters: " + ", ".join(able_filters))
     if lag > 0:
         fail("smoother.lag", lag, "0 while estimate.parameters is given (a smoother does not carry parameters)")
     if every > 1:

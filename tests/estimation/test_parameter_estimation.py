@@ -22,8 +22,9 @@ from assimbench.api import run
 from assimbench.config.catalogue import catalogue
 from assimbench.config.composition import compose_config
 from assimbench.config.plan import resolve
-from assimbench.estimation.augmented import floor_spread, standard_draw
+from assimbench.estimation.augmented import floor_spread, standard_draw, with_parameters
 from assimbench.estimation.parameters import make_member_forecast, member_params
+from assimbench.filters.kalman.ienks import make_ienks
 from assimbench.integrators import make_model_flow
 from assimbench.models.base import Model
 from assimbench.models.lorenz96 import make_lorenz96
@@ -50,24 +51,20 @@ def _augmented_transition(model, steps: int) -> np.ndarray:
     return np.array(columns).T
 
 
-@pytest.mark.parametrize("inflation", [1.0, 1.1])
-@pytest.mark.parametrize("name", sorted(n for n in ESTIMATING if catalogue().filters[n].kalman_exact))
-def test_augmented_filters_equal_the_kalman_filter_of_the_augmented_linear_system(name, inflation):
-    """x_k = M x_(k-1) + theta b, theta constant and unknown, every other variable observed with
-    error 0.5. The Kalman filter (Kalman 1960; textbook identity) of z = [x, theta] with
-    Phi = [[M, b], [0, 1]], H = [H_x, 0], started from the ensemble's sample mean and covariance,
-    and its parameter covariance inflated by a^2 (cross-covariances by a) before every analysis,
-    gives every cycle's mean and covariance of the augmented ensemble filter (N = 30 > n + 1: the
-    square-root filters are exact). Twelve cycles."""
+def _linear_plan(name: str, inflation: float, extra=()):
     overrides = [f"model.size={SIZE}", "observation.stride=2", f"observation.error_std={ERROR_STD}",
                  f"filter={name}", f"filter.members={MEMBERS}", "filter.inflation=1.0",
                  "estimate.parameters=[forcing]", "estimate.initial_mean=2.0", "estimate.initial_std=0.7",
-                 f"estimate.inflation={inflation}"]
+                 f"estimate.inflation={inflation}", *extra]
     if "radius" in compose_config([f"filter={name}"], validate=False).filter:
         overrides.append("filter.radius=null")
-    plan = resolve(compose_config(overrides))
-    filt, settings, operator = plan.setup.filter, plan.settings, plan.setup.operator
-    model = _linear_forced_model()
+    return resolve(compose_config(overrides))
+
+
+def _assert_equals_the_augmented_kalman_filter(filt, settings, operator, model, inflation, before_forecast=False):
+    """Twelve cycles of ``filt`` (estimating the forcing of the linear ``model``) against the Kalman
+    filter of the augmented system: every cycle's mean and covariance of [x, theta]; the parameter
+    inflation acts after the reference's forecast, or before it (``before_forecast``)."""
     forecast = jax.jit(make_member_forecast(model, 2, ("forcing",)))
     phi = _augmented_transition(model, 2)
     h = np.hstack([np.eye(SIZE)[operator.indices], np.zeros((operator.size, 1))])
@@ -81,7 +78,10 @@ def test_augmented_filters_equal_the_kalman_filter_of_the_augmented_linear_syste
     stretch = np.diag([1.0] * SIZE + [inflation])
     for _ in range(12):
         state = state._replace(members=forecast(state.members, state.parameters, {"forcing": jnp.asarray(0.0)}))
-        mean, cov = phi @ mean, stretch @ phi @ cov @ phi.T @ stretch
+        if before_forecast:
+            mean, cov = phi @ mean, phi @ stretch @ cov @ stretch @ phi.T
+        else:
+            mean, cov = phi @ mean, stretch @ phi @ cov @ phi.T @ stretch
         y = h @ mean + rng.normal(size=operator.size)
         state, _ = analyse(key, state, jnp.asarray(y), settings)
         gain = cov @ h.T @ np.linalg.inv(h @ cov @ h.T + r)
@@ -89,6 +89,37 @@ def test_augmented_filters_equal_the_kalman_filter_of_the_augmented_linear_syste
         z = np.hstack([np.asarray(state.members), np.asarray(state.parameters)])
         np.testing.assert_allclose(z.mean(axis=0), mean, rtol=1e-9, atol=1e-9)
         np.testing.assert_allclose(np.cov(z, rowvar=False), cov, rtol=1e-8, atol=1e-10)
+
+
+@pytest.mark.parametrize("inflation", [1.0, 1.1])
+@pytest.mark.parametrize("name", sorted(n for n in ESTIMATING if catalogue().filters[n].kalman_exact))
+def test_augmented_filters_equal_the_kalman_filter_of_the_augmented_linear_system(name, inflation):
+    """x_k = M x_(k-1) + theta b, theta constant and unknown, every other variable observed with
+    error 0.5. The Kalman filter (Kalman 1960; textbook identity) of z = [x, theta] with
+    Phi = [[M, b], [0, 1]], H = [H_x, 0], started from the ensemble's sample mean and covariance,
+    and its parameter covariance inflated by a^2 (cross-covariances by a) before every analysis,
+    gives every cycle's mean and covariance of the augmented ensemble filter (N = 30 > n + 1: the
+    square-root filters are exact). Twelve cycles."""
+    plan = _linear_plan(name, inflation)
+    _assert_equals_the_augmented_kalman_filter(plan.setup.filter, plan.settings, plan.setup.operator,
+                                               _linear_forced_model(), inflation)
+
+
+@pytest.mark.parametrize("window, inflation", [(1, 1.0), (1, 1.1), (2, 1.0)])
+def test_the_ienks_searching_parameters_with_the_state_equals_the_augmented_kalman_filter(window, inflation):
+    """The same check for the IEnKS, built on the linear model itself (it forecasts through its window
+    by itself): the parameters join the start ensemble, so with a linear model the Gauss-Newton
+    search lands on the Kalman analysis of [x, theta] (window 1), and a window of 2 sliding by 1
+    gives the same filtering distribution (a linear-Gaussian smoother's last state is the
+    filter's; textbook identity). The parameter inflation acts on the window's start, so on the
+    parameters the window is forecast with: the reference inflates before its forecast."""
+    plan = _linear_plan("ienks", inflation, [f"filter.window={window}"])
+    model = _linear_forced_model()
+    operator = plan.setup.filter_operator or plan.setup.operator
+    inner = make_ienks(model, operator, MEMBERS, window, 1, 10, "transform", 2, estimated=("forcing",))
+    filt = with_parameters(inner, 1)
+    _assert_equals_the_augmented_kalman_filter(filt, plan.settings, plan.setup.operator, model, inflation,
+                                               before_forecast=True)
 
 
 def _gaspari_cohn(d):
@@ -222,7 +253,7 @@ def test_a_lane_of_spread_keeping_equals_the_single_run():
          ["estimate.initial_mean", "one number"]),
         (["estimate.parameters=[forcing]", "estimate.initial_std=1", "filter=4dvar"],
          ["filter 4dvar", "etkf", "letkf"]),
-        (["estimate.parameters=[forcing]", "estimate.initial_std=1", "filter=ienks"], ["filter ienks", "denkf"]),
+        (["estimate.parameters=[forcing]", "estimate.initial_std=1", "filter=3denvar"], ["filter 3denvar", "ienks"]),
         (["estimate.parameters=[forcing]", "estimate.initial_std=1", "filter=sir"], ["filter sir", "enkfn"]),
         (["estimate.parameters=[forcing]", "estimate.initial_std=1", "smoother.lag=2"], ["smoother.lag=2"]),
         (["estimate.parameters=[forcing]", "estimate.initial_std=1", "analysis_every=2"], ["analysis_every=2"]),

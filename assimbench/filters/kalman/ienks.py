@@ -87,6 +87,7 @@ import jax
 import jax.numpy as jnp
 
 from assimbench.config.spec import FilterSpec, floats
+from assimbench.estimation.parameters import make_member_forecast
 from assimbench.filters.base import Filter
 from assimbench.filters.kalman.ensemble_space import symmetric_square_root_transform
 from assimbench.filters.kalman.inflation import (
@@ -208,10 +209,15 @@ def window_search(prior: jax.Array, obs: jax.Array, weights: jax.Array, error_va
 
 def make_ienks(model, operator, members: int, window: int, shift: int, max_iterations: int, variant: str,
                steps_per_interval: int, pieces=frozenset(), solver: str = "eigh", lag: int = 0,
-               assimilation: str = "single", prior: str = "gaussian", prior_extra_count: int = 1) -> Filter:
+               assimilation: str = "single", prior: str = "gaussian", prior_extra_count: int = 1,
+               estimated: tuple = ()) -> Filter:
     """The IEnKS of the module docstring with the forecast ``model``; settings["filter"] carries the
     inflation pieces, ``tolerance`` and ``bundle_scale``; ``lag`` > 0 keeps the smoothed ensembles of
-    the last ``lag`` cycles (shift 1, lag <= window)."""
+    the last ``lag`` cycles (shift 1, lag <= window). With ``estimated`` (names of the forecast
+    model's parameters) it offers ``analyse_augmented`` only: the window search runs on the
+    augmented start ensemble [x_0, theta] (N, n + q), each member forecast through the window with
+    its own theta, so the parameters are part of the control variable w as the state is
+    (Bocquet & Sakov 2013, Nonlin. Processes Geophys. 20, 803-818; from memory)."""
     if not 1 <= shift <= window:
         raise ValueError(f"the shift must be from 1 to the window ({window}), got {shift}")
     if lag and (shift != 1 or lag > window):
@@ -224,7 +230,16 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
                          f"got {assimilation!r} with window {window}, shift {shift}")
     if prior not in PRIORS:
         raise ValueError(f"unknown IEnKS prior {prior!r}; known: {PRIORS}")
-    advance = make_model_flow(model, steps_per_interval, ensemble=True)
+    size = model.size
+    if estimated:
+        # Augmented members [x, theta] (N, n + q): each member forecast with its own parameter values,
+        # which persist through the window (assimbench/estimation).
+        member_forecast = make_member_forecast(model, steps_per_interval, estimated)
+
+        def advance(z, params):
+            return jnp.concatenate([member_forecast(z[:, :size], z[:, size:], params), z[:, size:]], axis=1)
+    else:
+        advance = make_model_flow(model, steps_per_interval, ensemble=True)
     p = operator.size
     prior_count = float(members + prior_extra_count) if prior == "finite_size" else None
     # With the window equal to the shift every observation is seen once: multiple is single.
@@ -241,7 +256,15 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
             prior_count, frame.apply)
         return analysed, (iterations, zeta)
 
-    inflated_search = with_inflation(search, pieces)
+    inflation_search = with_inflation(search, pieces)
+
+    def inflated_search(key, start, window_obs, settings):
+        """The inflation pieces act on the state columns of the start ensemble only."""
+        if start.shape[1] == size:
+            return inflation_search(key, start, window_obs, settings)
+        analysed, parameters, info = inflation_search(key, start[:, :size], window_obs, settings,
+                                                      parameters=start[:, size:])
+        return jnp.concatenate([analysed, parameters], axis=1), info
 
     def init(key, initial_ensemble, settings):
         del key, settings
@@ -295,8 +318,21 @@ def make_ienks(model, operator, members: int, window: int, shift: int, max_itera
             info["inflation"] = new_state.inflation
         return new_state, info
 
+    def analyse_augmented(key, state, parameters, y, settings):
+        # The parameters are constant in time, so the window's start carries the current values.
+        def widen(ensemble):
+            return jnp.concatenate([ensemble, jnp.broadcast_to(parameters, ensemble.shape[:-2] + parameters.shape)],
+                                   axis=-1)
+
+        widened = state._replace(members=widen(state.members), start=widen(state.start), lagged=widen(state.lagged))
+        new, info = analyse(key, widened, y, settings)
+        narrowed = new._replace(members=new.members[:, :size], start=new.start[:, :size],
+                                lagged=new.lagged[..., :size])
+        return narrowed, new.members[:, size:], info
+
     return Filter(name="ienks", members=members, init=init, analyse=analyse,
-                  reports_inflation=prior_count is not None)
+                  reports_inflation=prior_count is not None,
+                  analyse_augmented=analyse_augmented if estimated else None)
 
 
 @dataclass
@@ -360,7 +396,7 @@ def _build(node, ctx) -> Filter:
     return make_ienks(ctx.model, ctx.operator, int(node.members), int(node.window), int(node.shift),
                       int(node.max_iterations), str(node.variant), ctx.steps_per_interval, inflation_pieces(node),
                       str(node.transform_solver), ctx.smoother_lag, str(node.assimilation), str(node.prior),
-                      int(node.prior_extra_count))
+                      int(node.prior_extra_count), ctx.estimated)
 
 
 SPEC = FilterSpec(
@@ -377,4 +413,5 @@ SPEC = FilterSpec(
     smoothable=lambda node: int(node.shift) == 1,
     lag_limit=lambda node: int(node.window),
     windowed=True,
+    estimates=True,
 )
