@@ -169,9 +169,16 @@ def build_report(paths: list, out: str, failing: FailingLevel = DEFAULT_LEVEL) -
     lines += ["## Lost settings", "", *(lost or ["None."]), ""]
     shown_columns = [c for c in columns if not c.endswith(("_low", "_high")) and c not in
                      ("rmse_forecast", "crps_analysis", "lost_reasons")]
-    with_intervals = ["rmse_analysis"] + [c for c in columns if c.startswith("estimate_") and c.endswith("_mean")]
+    estimates = [c for c in shown_columns if c.startswith("estimate_")]
+
+    def cell(r, c):
+        if c in estimates and not np.isfinite(r[c]):
+            return ""  # a setting that did not estimate this parameter
+        return with_interval(r[c], r[c + "_low"], r[c + "_high"]) if c.endswith("_mean") else r[c]
+
     readable = [{**r, "experiment": f"e{r['experiment']}",
-                 **{c: with_interval(r[c], r[c + "_low"], r[c + "_high"]) for c in with_intervals}} for r in records]
+                 "rmse_analysis": with_interval(r["rmse_analysis"], r["rmse_analysis_low"], r["rmse_analysis_high"]),
+                 **{c: cell(r, c) for c in estimates}} for r in records]
     headers = {"rmse_analysis": "analysis RMSE (95%)", "spread_analysis": "analysis spread",
                SPREAD_OVER_RMSE: "spread / RMSE", "innovation_ratio": "innovation ratio",
                "lost_replicates": "lost replicates"}

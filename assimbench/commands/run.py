@@ -327,12 +327,16 @@ def _lane_rows(result) -> list:
     s = result.summary
     head = "  " + "".join(f"{k:>{width}}" for k in keys)
     head += f"{'analysis RMSE (95%)':>24}{'analysis spread':>22}{'blew up':>9}"
+    estimates = [name for name in s if name.startswith("estimate_") and name.endswith(("_mean", "_error"))]
+    head += "".join(f"{name.removeprefix('estimate_').replace('_mean', '').replace('_error', ' minus truth'):>22}"
+                    for name in estimates)
     rows = [head]
     for lane in range(result.lane_count):
         one = {name: float(np.asarray(v)[lane]) for name, v in s.items()}
         lost = int(np.sum(result.first_bad_cycle[lane] >= 0))
         row = "  " + "".join(f"{result.lanes[k][lane]:>{width}g}" for k in keys)
-        rows.append(row + f"{_cell(one, 'rmse_analysis'):>24}{_cell(one, 'spread_analysis')}{lost:>9}")
+        rows.append(row + f"{_cell(one, 'rmse_analysis'):>24}{_cell(one, 'spread_analysis')}{lost:>9}"
+                    + "".join(_cell(one, name) for name in estimates))
     return rows
 
 
@@ -421,7 +425,7 @@ def _hydra_app(cfg: DictConfig) -> None:
             print(f"{COMMAND}: skipped: {output} is complete for this config", flush=True)
             return
         plan = resolve(cfg)
-        warning = spread_warning(cfg.estimate)
+        warning = spread_warning(cfg.estimate, cfg.lanes.get("estimate"))
         if warning:
             print(f"{COMMAND}: {warning}", file=sys.stderr, flush=True)
         _raise_if_stopped()

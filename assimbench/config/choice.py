@@ -20,6 +20,7 @@ from assimbench.estimation.section import (
     ESTIMATE_TRACED,
     EstimateConfig,
     check_estimate,
+    check_estimated_lanes,
     check_spread_keeping,
     estimated,
 )
@@ -246,6 +247,7 @@ def check(cfg: DictConfig) -> Choice:
     check_estimate(cfg.estimate, estimable_names(cfg, choice), filter_spec,
                    [name for name, spec in cat.filters.items() if spec.estimates], int(cfg.smoother.lag),
                    int(cfg.analysis_every))
+    check_estimated_lanes(cfg.estimate, choice.lanes)
     _check_outputs(cfg)
     _check_lanes(cfg, choice, cat)
     return choice

@@ -78,25 +78,40 @@ def check_estimate(node, names_allowed: tuple, filter_spec, able_filters: list, 
     shown = "[" + ",".join(chosen) + "]"
     for name in chosen:
         if name not in names_allowed:
-            c.fail("parameters", shown, "parameters of the forecast model: " + (", ".join(names_allowed) or "none"))
+            c.fail("parameters", shown, f"{name} is not a parameter of the forecast model; its parameters: "
+                   + (", ".join(names_allowed) or "none"))
     if len(set(chosen)) != len(chosen):
         c.fail("parameters", shown, "each parameter once")
     if not filter_spec.estimates:
-        c.fail("parameters", shown, f"[] with filter {filter_spec.name}, which does not carry parameters (the "
-                                    "variational filters have no parameter control variable, the particle filter "
-                                    "no parameter particles, yet); the filters that estimate parameters: " + ", ".join(able_filters))
+        c.fail("parameters", shown, f"[] with filter {filter_spec.name}, which cannot carry parameters; the filters "
+                                    "that estimate them: " + ", ".join(able_filters))
     if lag > 0:
         fail("smoother.lag", lag, "0 while estimate.parameters is given (a smoother does not carry parameters)")
     if every > 1:
-        fail("analysis_every", every, "1 while estimate.parameters is given")
+        fail("analysis_every", every, "1 while estimate.parameters is given (the parameters' spread keeping acts "
+                                      "at every analysis)")
     count = len(chosen)
-    how = "one number" if count == 1 else f"a list of {count} numbers, one per parameter"
+    how = "one number" if count == 1 else f"a list of {count} numbers (one per parameter)"
+    positive = "one number > 0" if count == 1 else f"{how}, each > 0"
     if node.initial_mean is not None:
         _per_parameter(c, "initial_mean", count, f"{how} (null: the forecast model's values)", positive=False)
     if node.initial_std is None:
-        c.fail("initial_std", None, f"{how} > 0: the prior spread of {shown}")
-    _per_parameter(c, "initial_std", count, f"{how} > 0", positive=True)
+        c.fail("initial_std", "null", f"{positive}: the prior spread of {shown}")
+    _per_parameter(c, "initial_std", count, positive, positive=True)
     check_spread_keeping(c)
+
+
+def check_estimated_lanes(node, lanes: list) -> None:
+    """Lanes over a forecast-model value the filter estimates from a given ``initial_mean`` would all be
+    the same run: refused (``lanes``: (full key, values) of every lane list)."""
+    if node.initial_mean is None:
+        return  # the prior mean is each lane's value: a real sweep
+    for key, values in lanes:
+        section, _, leaf = key.rpartition(".")
+        if section == "forecast_model" and leaf in estimated(node):
+            fail(f"lanes.{key}", "[" + ",".join(f"{v:g}" for v in values) + "]",
+                 f"no lanes while {leaf} is estimated from estimate.initial_mean: every lane would be the same run "
+                 "(estimate.initial_mean=null starts each lane from its own value)")
 
 
 def check_spread_keeping(c: NodeChecks) -> None:
@@ -105,9 +120,14 @@ def check_spread_keeping(c: NodeChecks) -> None:
     c.real("spread_floor", "a finite fraction of initial_std >= 0 (0 = none)", minimum=0.0, strict=False)
 
 
-def spread_warning(node) -> str | None:
-    """One line when parameters are estimated with no spread keeping at all, else None."""
-    if not estimated(node) or float(node.inflation) > 1.0 or float(node.noise) > 0 or float(node.spread_floor) > 0:
+def spread_warning(node, lanes=None) -> str | None:
+    """One line when parameters are estimated with no spread keeping at all, in the section or in
+    any of its lanes (``lanes``: the ``lanes.estimate`` node, or None), else None."""
+    def kept(key, none) -> bool:
+        values = [node[key]] + list((lanes or {}).get(key) or [])
+        return any(float(v) != none for v in values)
+
+    if not estimated(node) or kept("inflation", 1.0) or kept("noise", 0.0) or kept("spread_floor", 0.0):
         return None
     return ("warning: estimate.parameters with no spread keeping (estimate.inflation=1, noise=0, spread_floor=0): "
             "the parameter spread collapses and the estimate freezes")

@@ -434,38 +434,53 @@ def estimated_parameters(setting) -> list:
     return list(setting.config.get("estimate.parameters") or [])
 
 
+# Setting colours of the trajectories figure: black is the truth's line there.
+TRAJECTORY_PALETTE = tuple(c for c in PALETTE if c != OKABE_ITO["black"])
+
+
+def _trajectories(ax, setting, column: int, colour: str, label: str) -> np.ndarray:
+    """One setting's estimates of one parameter on ``ax``: every replicate (thin), their mean (thick),
+    the mean ± the mean spread (dotted). Returns the values drawn (for the axis range)."""
+    means = setting.series("parameter_mean")[..., column]  # (replicates of every seed, cycles)
+    spreads = setting.series("parameter_spread")[..., column]
+    time = setting.rows[0].interval * np.arange(1, means.shape[1] + 1)
+    for replicate in means:
+        ax.plot(time, replicate, color=colour, lw=0.5, alpha=0.35)
+    centre, width = means.mean(axis=0), spreads.mean(axis=0)
+    # The band is drawn as its edges: filled bands of several settings would hide each other.
+    for edge in (centre - width, centre + width):
+        ax.plot(time, edge, color=colour, lw=0.8, ls=":")
+    replicates, seeds = means.shape[0], len(setting.seeds)
+    lost = f", lost {setting.lost}" if setting.lost else ""
+    ax.plot(time, centre, color=colour, lw=1.6, label=f"{label} ({replicates} replicate{'s' if replicates > 1 else ''}, "
+            f"{seeds} seed{'s' if seeds > 1 else ''}{lost})")
+    return np.concatenate([means.ravel(), centre - width, centre + width])
+
+
 def parameter_trajectories(settings: list, keys: list, path: str) -> str:
     """One panel per estimated parameter: the analysis-mean estimate of every replicate of every seed
     (thin) and of their mean (thick), with the mean parameter spread as a band around it, for every
     setting (colour) that estimated it; the truth's value dashed where the truth has the parameter.
     ``keys`` are the config keys besides filter and ensemble size that tell the settings apart in the
-    legend."""
-    settings = [s for s in settings if estimated_parameters(s)][: len(PALETTE)]
-    names = list(dict.fromkeys(n for s in settings for n in estimated_parameters(s)))[:MAX_PANELS]
+    legend. The axis range is that of the settings that lost no replicate (when there are any), so
+    one that lost the truth does not flatten the others; the legend marks it."""
+    estimating = [s for s in settings if estimated_parameters(s)]
+    settings = estimating[: len(TRAJECTORY_PALETTE)]
+    names = list(dict.fromkeys(n for s in settings for n in estimated_parameters(s)))
     with matplotlib.rc_context(STYLE):
-        fig, axes = _axes(len(names), 1, squeeze=False, figsize=(9.0, 2.2 + 2.6 * len(names)), sharex=True,
-                          layout="constrained")
+        panels = min(len(names), MAX_PANELS)
+        fig, axes = _axes(panels, 1, squeeze=False, figsize=(9.0, 2.2 + 2.6 * panels), sharex=True, layout="constrained")
         labels = [point_name(s.filter, s.members, describe(s.config, keys)) for s in settings]
-        palette = colours(labels)
+        palette = dict(zip(labels, TRAJECTORY_PALETTE))
         for ax, name in zip(axes[:, 0], names):
-            truth = None
+            truth, kept, drawn = None, [], []
             for setting, label in zip(settings, labels):
                 if name not in estimated_parameters(setting):
                     continue
-                column = estimated_parameters(setting).index(name)
-                means = setting.series("parameter_mean")[..., column]  # (replicates of every seed, cycles)
-                spreads = setting.series("parameter_spread")[..., column]
-                time = setting.rows[0].interval * np.arange(1, means.shape[1] + 1)
-                colour = palette[label]
-                for replicate in means:
-                    ax.plot(time, replicate, color=colour, lw=0.5, alpha=0.35)
-                centre, width = means.mean(axis=0), spreads.mean(axis=0)
-                # The band is drawn as its edges: filled bands of several settings would hide each other.
-                for edge in (centre - width, centre + width):
-                    ax.plot(time, edge, color=colour, lw=0.8, ls=":")
-                seeds = len(setting.seeds)
-                ax.plot(time, centre, color=colour, lw=1.6,
-                        label=f"{label} ({means.shape[0]} replicates, {seeds} seed{'s' if seeds > 1 else ''})")
+                values = _trajectories(ax, setting, estimated_parameters(setting).index(name), palette[label], label)
+                drawn.append(values)
+                if not setting.lost:
+                    kept.append(values)
                 summary = setting.rows[0].summary
                 if f"estimate_{name}_error" in summary:  # the truth has the parameter: mean - error is its value
                     truth = float(summary[f"estimate_{name}_mean"] - summary[f"estimate_{name}_error"])
@@ -473,18 +488,28 @@ def parameter_trajectories(settings: list, keys: list, path: str) -> str:
                 ax.axhline(truth, color="black", lw=1.0, ls="--", label="the truth's value")
                 ax.annotate(f"truth {truth:.4g}", (1.0, truth), xycoords=("axes fraction", "data"), fontsize=7.5,
                             ha="right", va="bottom")
+            if kept and len(kept) < len(drawn):
+                shown = np.concatenate(kept + ([np.array([truth])] if truth is not None else []))
+                low, high = float(np.nanmin(shown)), float(np.nanmax(shown))
+                margin = 0.08 * (high - low) if high > low else 0.5
+                ax.set_ylim(low - margin, high + margin)
             burn_in = int(settings[0].config.get("burn_in", 0)) * settings[0].rows[0].interval
             ax.axvspan(0, burn_in, color="#f0f0f0", lw=0, zorder=0)
             ax.set_ylabel(setting_word(f"forecast_model.{name}"))
             ax.set_title(f"Estimated {name.replace('_', ' ')}", fontsize=9)
-        shown = {}
+        legend = {}
         for ax in axes[:, 0]:
             for handle, text in zip(*ax.get_legend_handles_labels()):
-                shown.setdefault(text if not text.startswith("truth") else "the truth's value", handle)
-        handles, texts = list(shown.values()), list(shown)
-        fig.legend(handles, texts, loc="outside lower center", ncols=1, fontsize=7.5)
+                legend.setdefault(text, handle)
+        fig.legend(list(legend.values()), list(legend), loc="outside lower center", ncols=1, fontsize=7.5)
         axes[-1, 0].set_xlabel(f"time ({TIME_UNITS}); shaded: burn-in")
+        left_out = []
+        if len(settings) < len(estimating):
+            left_out.append(f"the first {len(settings)} of {len(estimating)} settings")
+        if len(names) > MAX_PANELS:
+            left_out.append(f"the first {MAX_PANELS} of {len(names)} parameters")
+        more = f"; shown: {' and '.join(left_out)} (all in summary.csv)" if left_out else ""
         fig.suptitle("Parameter estimates over time: the analysis mean of the members' values\n(thick: mean of the "
-                     "replicates; thin: each replicate; dotted: that mean ± the mean parameter spread)",
+                     f"replicates; thin: each replicate; dotted: that mean ± the mean parameter spread{more})",
                      fontsize=10, fontweight="bold")
         return save_png(fig, path)

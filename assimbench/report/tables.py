@@ -120,9 +120,16 @@ def comparisons_table(comparisons: list) -> list:
     return records
 
 
+def _listed(value) -> str:
+    """A list-valued key (estimate.parameters) as it is written on the command line: [forcing,rho]."""
+    return "[" + ",".join(str(v) for v in value) + "]"
+
+
 def _text(value) -> str:
     if isinstance(value, float):
         return "" if np.isnan(value) else f"{value:.4g}"
+    if isinstance(value, (tuple, list)):
+        return _listed(value)
     return "" if value is None else str(value)
 
 
@@ -132,8 +139,8 @@ def to_csv(columns: list, records: list) -> str:
     writer = csv.DictWriter(out, fieldnames=columns, extrasaction="ignore", lineterminator="\n")
     writer.writeheader()
     for record in records:
-        writer.writerow({k: ("" if isinstance(v, float) and np.isnan(v) else repr(v) if isinstance(v, float) else v)
-                         for k, v in record.items()})
+        writer.writerow({k: ("" if isinstance(v, float) and np.isnan(v) else repr(v) if isinstance(v, float)
+                             else _listed(v) if isinstance(v, (tuple, list)) else v) for k, v in record.items()})
     return out.getvalue()
 
 

@@ -86,6 +86,8 @@ def value_text(value) -> str:
         return "yes" if value else "no"
     if isinstance(value, float):
         return f"{value:g}"
+    if isinstance(value, (tuple, list)):  # a list key (estimate.parameters): "forcing, rho", or none
+        return ", ".join(value_text(v) for v in value) or "none"
     return str(value)
 
 

@@ -24,6 +24,7 @@ from assimbench.config.composition import compose_config
 from assimbench.config.plan import resolve
 from assimbench.estimation.augmented import floor_spread, standard_draw, with_parameters
 from assimbench.estimation.parameters import make_member_forecast, member_params
+from assimbench.estimation.section import spread_warning
 from assimbench.filters.kalman.ienks import make_ienks
 from assimbench.integrators import make_model_flow
 from assimbench.models.base import Model
@@ -244,9 +245,12 @@ def test_a_lane_of_spread_keeping_equals_the_single_run():
 @pytest.mark.parametrize(
     "overrides, words",
     [
-        (["estimate.parameters=[forcing]"], ["estimate.initial_std=None", "prior spread of [forcing]"]),
+        (["estimate.parameters=[forcing]"], ["estimate.initial_std='null'", "prior spread of [forcing]"]),
         (["estimate.parameters=[forcing]", "estimate.initial_std=0"], ["estimate.initial_std=0", "never updated"]),
-        (["estimate.parameters=[forcin]", "estimate.initial_std=1"], ["estimate.parameters", "forcing"]),
+        (["estimate.parameters=[forcin]", "estimate.initial_std=1"], ["estimate.parameters", "forcin is not", "forcing"]),
+        (["forecast_model=lorenz96", "estimate.parameters=[forcing]", "estimate.initial_std=1", "estimate.initial_mean=7",
+          "lanes.forecast_model.forcing=[6,7]"], ["lanes.forecast_model.forcing", "estimate.initial_mean=null"]),
+        (["estimate.parameters=[forcing]", "estimate.initial_std=1", "filter=free"], ["filter free", "ienks"]),
         (["estimate.parameters=[forcing,forcing]", "estimate.initial_std=1"], ["each parameter once"]),
         (["estimate.parameters=[forcing]", "estimate.initial_std=[1,2]"], ["estimate.initial_std", "one number"]),
         (["estimate.parameters=[forcing]", "estimate.initial_std=1", "estimate.initial_mean=[7,8]"],
@@ -283,3 +287,11 @@ def test_the_run_warns_in_one_line_when_nothing_keeps_the_parameter_spread(tmp_p
     assert done.returncode == 0, done.stderr
     warnings = [line for line in done.stderr.splitlines() if "spread" in line]
     assert len(warnings) == 1 and "collapses" in warnings[0], done.stderr
+
+
+def test_the_warning_counts_spread_keeping_given_by_lanes():
+    node = compose_config(["estimate.parameters=[forcing]", "estimate.initial_std=1"]).estimate
+    assert "no spread keeping" in spread_warning(node)
+    assert spread_warning(node, {"spread_floor": [0.0, 0.1]}) is None
+    assert spread_warning(node, {"inflation": [1.0, 1.05]}) is None
+    assert "no spread keeping" in spread_warning(node, {"noise": [0.0, 0.0]})
