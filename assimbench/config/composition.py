@@ -176,6 +176,9 @@ def _translate(err: BaseException, overrides, config_name: str = "config", confi
     cause = err.__cause__ if err.__cause__ is not None else err
     failing = re.search(r"override (\S+)", message)
     where = failing.group(1) if failing else in_file.group(1) if in_file else "configuration"
+    if "is not a ListConfig" in str(cause):  # a list key given one bare value
+        key = where.partition("=")[0]
+        return ConfigError(f"{where} is not allowed: a list in brackets, e.g. {key}=[{where.partition('=')[2]}]")
     return ConfigError(f"{where} is not allowed: {_first_line(cause)}")
 
 

@@ -266,6 +266,7 @@ def test_a_lane_of_spread_keeping_equals_the_single_run():
         (["estimate.parameters=[forcing]", "estimate.initial_std=1", "lanes.estimate.noise=[0.1,-1]"],
          ["lanes.estimate.noise=-1"]),
         (["lanes.estimate.noise=[0.1,0.2]"], ["lanes.estimate.noise"]),
+        (["estimate.parameters=forcing", "estimate.initial_std=1"], ["estimate.parameters=[forcing]"]),
         (["model=lorenz63", "estimate.parameters=[forcing]", "estimate.initial_std=1"], ["sigma, rho, beta"]),
     ],
 )
