@@ -25,8 +25,16 @@ def floats(node, keys) -> dict:
     return {key: float(node[key]) for key in keys}
 
 
+class _Estimable:
+    """The names of a model spec's parameters a filter can estimate: ``estimable(node)``, or its
+    traced keys when the spec gives none."""
+
+    def estimable_names(self, node) -> tuple:
+        return self.traced if self.estimable is None else tuple(self.estimable(node))
+
+
 @dataclass(frozen=True)
-class ModelSpec:
+class ModelSpec(_Estimable):
     """A model of the ``model`` group (and of the ``forecast_model`` group).
 
     build(node) -> Model; sizes(node) -> (state size, resolved size) without
@@ -48,9 +56,6 @@ class ModelSpec:
     lorenz96_ring: bool = False
     estimable: Callable | None = None
 
-    def estimable_names(self, node) -> tuple:
-        return self.traced if self.estimable is None else tuple(self.estimable(node))
-
 
 class ModelFacts(NamedTuple):
     """What the checks know of a model before anything is built: its name, state size, resolved
@@ -64,7 +69,7 @@ class ModelFacts(NamedTuple):
 
 
 @dataclass(frozen=True)
-class DerivedModelSpec:
+class DerivedModelSpec(_Estimable):
     """A forecast model made from the truth model (only in the ``forecast_model`` group).
 
     build(node, truth: Model) -> Model; sizes(node, truth: ModelFacts) ->
@@ -83,9 +88,6 @@ class DerivedModelSpec:
     check: Callable = _nothing
     traced: tuple = ()
     estimable: Callable | None = None
-
-    def estimable_names(self, node) -> tuple:
-        return self.traced if self.estimable is None else tuple(self.estimable(node))
 
 
 @dataclass(frozen=True)

@@ -23,9 +23,7 @@ def layouts_of(setup: TwinSetup) -> tuple:
                                          bool(setup.estimated)).items():
         if series.extra_dim is None:
             layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle"))
-        elif series.extra_dim in ("lag", "parameter"):
-            layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle", series.extra_dim))
-        else:  # rank counts are integers; per-station sums are not
+        else:  # rank counts are integers; lags, parameters and per-station sums are not
             kind = np.int32 if series.extra_dim == "rank" else np.float64
             layouts[name] = Layout(series.long_name, series.units, ("replicate", "cycle", series.extra_dim), kind)
     layouts.update({name: FIELD_LAYOUTS[name] for name in setup.fields})

@@ -66,27 +66,27 @@ def make_ensrf(model, operator, members: int, radius: float | None, pieces=froze
             return jnp.ones(distance.shape)
         return gaspari_cohn(distance / settings["filter"]["radius"])
 
-    def global_update(key, prior, parameters, y, settings):
-        del key
+    def analysed(prior, y, settings, global_columns: int = 0):
+        """The serial EnSRF of ``prior`` (N, B n + q): B blocks of the state (a fixed-lag smoother's
+        earlier states after the current one), each variable tapered at its own grid point, then q
+        global columns (estimated parameters) with weight 1 for every observation."""
         white = operator.whiten(settings, y)
         taper = tapers(settings)
-        # The parameters sit between the state and the predicted observations, untapered.
-        taper = jnp.concatenate([taper[:, :size], jnp.ones((taper.shape[0], parameters.shape[1])), taper[:, size:]],
-                                axis=1)
-        both = ensrf_analysis(jnp.concatenate([prior, parameters], axis=1), white.observe(prior), white.obs,
-                              white.variance, taper)
-        return both[:, :size], both[:, size:], {}
+        blocks = (prior.shape[1] - global_columns) // size
+        taper = jnp.concatenate([jnp.tile(taper[:, :size], (1, blocks)), jnp.ones((taper.shape[0], global_columns)),
+                                 taper[:, size:]], axis=1)
+        # A correlated R: the whitened observations L^-1 y are processed one by one, each tapered at the
+        # position of the station of its row (row j of L^-1 mixes stations 1..j, mostly j).
+        return ensrf_analysis(prior, white.observe(prior), white.obs, white.variance, taper)
 
     def update(key, prior, y, settings):
         del key
-        white = operator.whiten(settings, y)
-        taper = tapers(settings)
-        blocks = prior.shape[1] // size
-        if blocks > 1:  # a fixed-lag smoother's earlier states: each variable tapered at its own grid point
-            taper = jnp.concatenate([jnp.tile(taper[:, :size], (1, blocks)), taper[:, size:]], axis=1)
-        # A correlated R: the whitened observations L^-1 y are processed one by one, each tapered at the
-        # position of the station of its row (row j of L^-1 mixes stations 1..j, mostly j).
-        return ensrf_analysis(prior, white.observe(prior), white.obs, white.variance, taper), {}
+        return analysed(prior, y, settings), {}
+
+    def global_update(key, prior, parameters, y, settings):
+        del key
+        both = analysed(jnp.concatenate([prior, parameters], axis=1), y, settings, parameters.shape[1])
+        return both[:, :size], both[:, size:], {}
 
     return inflation.ensemble_filter("ensrf", members, update, pieces, global_update=global_update)
 
