@@ -145,7 +145,10 @@ class FilterSpec:
     that declares it); windowed: the filter keeps a window of observation
     times and uses every one of them (it refuses ``analysis_every`` > 1);
     estimates: the built filter offers ``Filter.analyse_augmented``, so it can
-    estimate forecast-model parameters (assimbench/estimation).
+    estimate forecast-model parameters (assimbench/estimation); steps(node,
+    context) -> ``record(key, state, y, settings) -> dict``, the analysis step
+    by step for reference vectors (assimbench/vectors: the names and order of
+    assimbench/vectors/quantities.py; None: the filter has no vectors yet).
     """
 
     name: str
@@ -167,6 +170,7 @@ class FilterSpec:
     kalman_exact: bool = False
     windowed: bool = False
     estimates: bool = False
+    steps: Callable | None = None
 
 
 __all__ = ["DerivedModelSpec", "FilterContext", "FilterSpec", "ModelSpec", "NetworkSpec", "ModelFacts", "NodeChecks",

@@ -198,6 +198,17 @@ def make_truth_chunk(model: Model, operator: ObservationOperator, steps_per_cycl
     return truth_chunk
 
 
+def make_forecast(setup: TwinSetup):
+    """Return ``forecast(state, params) -> members``: every member of the filter's state forecast over
+    one interval with the forecast model (``params`` its traced parameters), each with its own
+    estimated parameter values when the filter estimates some (assimbench/estimation)."""
+    if setup.estimated:
+        member_forecast = make_member_forecast(setup.forecaster, setup.forecaster_steps, setup.estimated)
+        return lambda state, params: member_forecast(state.members, state.parameters, params)
+    flow = make_model_flow(setup.forecaster, setup.forecaster_steps, ensemble=True)
+    return lambda state, params: flow(state.members, params)
+
+
 def make_cycle(setup: TwinSetup, scalar_names: list):
     """Return ``cycle(carry, inputs, settings, filter_key) -> (carry, outputs)``: one forecast of
     every member with the forecast model and one analysis, with the cycle's diagnostics and stored
@@ -206,12 +217,7 @@ def make_cycle(setup: TwinSetup, scalar_names: list):
     ``scalar_names``; with a smoother, ``rmse_smoothed`` and ``spread_smoothed`` (K,) score the
     smoothed ensembles of lags 1 .. K against the truth of cycles k - 1 .. k - K."""
     model, filt, forecaster = setup.model, setup.filter, setup.forecaster
-    if setup.estimated:  # every member with its own parameter values (assimbench/estimation)
-        member_forecast = make_member_forecast(forecaster, setup.forecaster_steps, setup.estimated)
-        forecast = lambda state, params: member_forecast(state.members, state.parameters, params)
-    else:
-        flow = make_model_flow(forecaster, setup.forecaster_steps, ensemble=True)
-        forecast = lambda state, params: flow(state.members, params)
+    forecast = make_forecast(setup)
     resolved = model.resolved_size
     if forecaster.size == resolved:
         scored = lambda state: state

@@ -18,6 +18,7 @@ from assimbench.filters.kalman.inflation import (
     InflationConfig,
     ensemble_filter,
     inflation_pieces,
+    steps_with_inflation,
 )
 
 
@@ -49,20 +50,47 @@ def enkf_analysis(members, obs_members, perturbed_y, error_var):
     return members + weights.T @ anomalies
 
 
-def make_enkf(operator, members: int, centre_perturbations: bool, pieces=frozenset()) -> Filter:
-    """Perturbed-observation EnKF; ``centre_perturbations`` removes the perturbations' ensemble
-    mean so the analysis mean is the Kalman update of the forecast mean (static choice)."""
+def ensemble_gain(members, obs_members, error_var):
+    """K = X^T Y (Y^T Y + (N - 1) R)^-1 (n, p), X and Y the anomalies of ``members`` (N, n) and
+    ``obs_members`` (N, p): the gain :func:`enkf_analysis` applies (its p x p form)."""
+    n_members, n_obs = obs_members.shape
+    anomalies = members - members.mean(axis=0)
+    obs_anomalies = obs_members - obs_members.mean(axis=0)
+    system = obs_anomalies.T @ obs_anomalies + (n_members - 1) * jnp.diag(jnp.broadcast_to(error_var, (n_obs,)))
+    return jnp.linalg.solve(system, obs_anomalies.T @ anomalies).T
+
+
+def make_enkf_with_steps(operator, members: int, centre_perturbations: bool, pieces=frozenset()) -> tuple:
+    """(the perturbed-observation EnKF, its step record for reference vectors (FilterSpec.steps));
+    ``centre_perturbations`` removes the perturbations' ensemble mean so the analysis mean is the
+    Kalman update of the forecast mean (static choice)."""
+
+    def perturbed_observations(key, white):
+        draws = jax.random.normal(key, (members, operator.size))
+        perturbations = draws - draws.mean(axis=0) if centre_perturbations else draws
+        # Unit perturbations of the whitened observations are L e in y's frame: correlated as R is.
+        return draws, white.obs + white.std * perturbations
 
     def update(key, prior, y, settings):
         white = operator.whiten(settings, y)
-        perturbations = jax.random.normal(key, (members, operator.size))
-        if centre_perturbations:
-            perturbations = perturbations - perturbations.mean(axis=0)
-        # Unit perturbations of the whitened observations are L e in y's frame: correlated as R is.
-        perturbed = white.obs + white.std * perturbations
+        perturbed = perturbed_observations(key, white)[1]
         return enkf_analysis(prior, white.observe(prior), perturbed, white.std**2), {}
 
-    return ensemble_filter("enkf", members, update, pieces)
+    def update_steps(key, prior, y, settings):
+        white = operator.whiten(settings, y)
+        draws, perturbed = perturbed_observations(key, white)
+        predicted = white.observe(prior)
+        return {"observation_perturbation_draws": draws, "predicted_observations": predicted,
+                "innovation": white.obs - predicted.mean(axis=0), "perturbed_observations": perturbed,
+                "gain": ensemble_gain(prior, predicted, white.std**2),
+                "analysis_ensemble": enkf_analysis(prior, predicted, perturbed, white.std**2)}
+
+    return ensemble_filter("enkf", members, update, pieces), steps_with_inflation(update_steps, pieces)
+
+
+def make_enkf(operator, members: int, centre_perturbations: bool, pieces=frozenset()) -> Filter:
+    """Perturbed-observation EnKF (:func:`make_enkf_with_steps`)."""
+    return make_enkf_with_steps(operator, members, centre_perturbations, pieces)[0]
 
 
 @dataclass
@@ -80,5 +108,7 @@ SPEC = FilterSpec(
     schema=EnKFConfig,
     build=lambda node, ctx: make_enkf(ctx.operator, int(node.members), bool(node.centre_perturbations),
                                       inflation_pieces(node)),
+    steps=lambda node, ctx: make_enkf_with_steps(ctx.operator, int(node.members), bool(node.centre_perturbations),
+                                                 inflation_pieces(node))[1],
     **INFLATION_SPEC_FIELDS,
 )

@@ -34,11 +34,37 @@ def ensrf_analysis(members, obs_members, y, error_var, taper):
         zbar <- zbar + K_j (y_j - mean_j)
         z'_i <- z'_i - alpha K_j a_ij,  alpha = 1 / (1 + sqrt(r / (s + r)))   (W&H 2002, eq. 13)
     """
-    n_members, size = members.shape
-    state = jnp.concatenate([members, obs_members], axis=1)
+    assimilate = _serial_step(members.shape[1])
+    state, _ = jax.lax.scan(lambda z, inputs: (assimilate(z, inputs)[0], None),
+                            jnp.concatenate([members, obs_members], axis=1),
+                            _serial_inputs(y, taper, error_var))
+    return state[:, : members.shape[1]]
+
+
+def ensrf_steps(members, obs_members, y, error_var, taper) -> dict:
+    """:func:`ensrf_analysis` step by step, for reference vectors (assimbench/vectors/quantities.py):
+    h(x_b,i), the innovation, the localization weights on the state (n, p), and after each observation
+    j its gain K_j and the ensemble mean (p, n), then the analysis."""
+    size = members.shape[1]
+    assimilate = _serial_step(size)
+    state, (gains, means) = jax.lax.scan(assimilate, jnp.concatenate([members, obs_members], axis=1),
+                                         _serial_inputs(y, taper, error_var))
+    return {"predicted_observations": obs_members, "innovation": y - obs_members.mean(axis=0),
+            "localization_weights": taper[:, :size].T, "serial_gain": gains[:, :size],
+            "serial_mean": means[:, :size], "analysis_ensemble": state[:, :size]}
+
+
+def _serial_inputs(y, taper, error_var):
+    return jnp.arange(y.shape[0]), y, taper, jnp.broadcast_to(error_var, y.shape)
+
+
+def _serial_step(size: int):
+    """One observation of :func:`ensrf_analysis`: ``assimilate(augmented (N, n + p), (j, y_j, taper_j, r_j))
+    -> (augmented, (gain K_j, mean after it))``, ``size`` = n."""
 
     def assimilate(augmented, inputs):
         j, value, weights, error_var = inputs
+        n_members = augmented.shape[0]
         mean = augmented.mean(axis=0)
         anomalies = augmented - mean
         predicted = anomalies[:, size + j]
@@ -47,15 +73,14 @@ def ensrf_analysis(members, obs_members, y, error_var, taper):
         alpha = 1.0 / (1.0 + jnp.sqrt(error_var / (variance + error_var)))
         mean = mean + gain * (value - mean[size + j])
         anomalies = anomalies - alpha * predicted[:, None] * gain[None, :]
-        return mean + anomalies, None
+        return mean + anomalies, (gain, mean)
 
-    steps = (jnp.arange(y.shape[0]), y, taper, jnp.broadcast_to(error_var, y.shape))
-    state, _ = jax.lax.scan(assimilate, state, steps)
-    return state[:, :size]
+    return assimilate
 
 
-def make_ensrf(model, operator, members: int, radius: float | None, pieces=frozenset()) -> Filter:
-    """Serial EnSRF; ``radius=None`` switches localization off (weights 1)."""
+def make_ensrf_with_steps(model, operator, members: int, radius: float | None, pieces=frozenset()) -> tuple:
+    """(the serial EnSRF, its step record for reference vectors (FilterSpec.steps)); ``radius=None``
+    switches localization off (weights 1)."""
     size = model.size
     positions = np.concatenate([np.arange(size, dtype=np.float64), operator.positions])
     distance = ring_distance(operator.positions[:, None], positions[None, :], size)  # (p, n + p)
@@ -66,15 +91,19 @@ def make_ensrf(model, operator, members: int, radius: float | None, pieces=froze
             return jnp.ones(distance.shape)
         return gaspari_cohn(distance / settings["filter"]["radius"])
 
+    def tapered(settings, blocks: int = 1, global_columns: int = 0):
+        """(p, B n + q + p): each observation's weight on B blocks of the state, q global columns (weight
+        1) and the predicted observations."""
+        taper = tapers(settings)
+        return jnp.concatenate([jnp.tile(taper[:, :size], (1, blocks)), jnp.ones((taper.shape[0], global_columns)),
+                                taper[:, size:]], axis=1)
+
     def analysed(prior, y, settings, global_columns: int = 0):
         """The serial EnSRF of ``prior`` (N, B n + q): B blocks of the state (a fixed-lag smoother's
         earlier states after the current one), each variable tapered at its own grid point, then q
         global columns (estimated parameters) with weight 1 for every observation."""
         white = operator.whiten(settings, y)
-        taper = tapers(settings)
-        blocks = (prior.shape[1] - global_columns) // size
-        taper = jnp.concatenate([jnp.tile(taper[:, :size], (1, blocks)), jnp.ones((taper.shape[0], global_columns)),
-                                 taper[:, size:]], axis=1)
+        taper = tapered(settings, (prior.shape[1] - global_columns) // size, global_columns)
         # A correlated R: the whitened observations L^-1 y are processed one by one, each tapered at the
         # position of the station of its row (row j of L^-1 mixes stations 1..j, mostly j).
         return ensrf_analysis(prior, white.observe(prior), white.obs, white.variance, taper)
@@ -88,7 +117,13 @@ def make_ensrf(model, operator, members: int, radius: float | None, pieces=froze
         both = analysed(jnp.concatenate([prior, parameters], axis=1), y, settings, parameters.shape[1])
         return both[:, :size], both[:, size:], {}
 
-    return inflation.ensemble_filter("ensrf", members, update, pieces, global_update=global_update)
+    def update_steps(key, prior, y, settings):
+        del key
+        white = operator.whiten(settings, y)
+        return ensrf_steps(prior, white.observe(prior), white.obs, white.variance, tapered(settings))
+
+    filt = inflation.ensemble_filter("ensrf", members, update, pieces, global_update=global_update)
+    return filt, inflation.steps_with_inflation(update_steps, pieces)
 
 
 @dataclass
@@ -97,6 +132,11 @@ class EnSRFConfig(inflation.InflationConfig):
 
     name: str = "ensrf"
     radius: float | None = 4.0
+
+
+def make_ensrf(model, operator, members: int, radius: float | None, pieces=frozenset()) -> Filter:
+    """Serial EnSRF; ``radius=None`` switches localization off (weights 1)."""
+    return make_ensrf_with_steps(model, operator, members, radius, pieces)[0]
 
 
 SPEC = FilterSpec(
@@ -111,4 +151,6 @@ SPEC = FilterSpec(
     kalman_exact=True,
     smoothable=lambda node: True,
     estimates=True,
+    steps=lambda node, ctx: make_ensrf_with_steps(ctx.model, ctx.operator, int(node.members), radius_of(node),
+                                                  inflation.inflation_pieces(node))[1],
 )

@@ -20,11 +20,18 @@ from assimbench.filters.kalman.adaptive import (
 from assimbench.filters.kalman.ensemble_space import (
     ensemble_space,
     mean_weights,
+    precision,
     solve,
     square_root_transform,
     transform_members,
 )
-from assimbench.filters.kalman.inflation import INFLATION_KEYS, WIDEST, ensemble_filter, inflation_pieces
+from assimbench.filters.kalman.inflation import (
+    INFLATION_KEYS,
+    WIDEST,
+    ensemble_filter,
+    inflation_pieces,
+    steps_with_inflation,
+)
 from assimbench.filters.kalman.precision_solvers import check_transform_solver
 
 
@@ -48,6 +55,29 @@ def etkf_analysis(members: jax.Array, obs_members: jax.Array, y: jax.Array, erro
     space = ensemble_space(members, obs_members, error_var)
     solved = solve(space, solver)
     return transform_members(space, mean_weights(space, y, solved), square_root_transform(solved))
+
+
+def etkf_steps(members: jax.Array, obs_members: jax.Array, y: jax.Array, error_var, solver: str = "eigh") -> dict:
+    """:func:`etkf_analysis` step by step, for reference vectors (assimbench/vectors/quantities.py):
+    h(x_b,i), the innovation, A, wbar, W, T = 1 wbar^T + W and the analysis, in that order."""
+    space = ensemble_space(members, obs_members, error_var)
+    solved = solve(space, solver)
+    weights_mean, transform = mean_weights(space, y, solved), square_root_transform(solved)
+    return {"predicted_observations": obs_members, "innovation": y - space.obs_mean,
+            "ensemble_precision": precision(space), "mean_weights": weights_mean, "transform": transform,
+            "analysis_weights": weights_mean[None, :] + transform,
+            "analysis_ensemble": transform_members(space, weights_mean, transform)}
+
+
+def make_etkf_steps(operator, pieces=frozenset(), solver: str = "eigh"):
+    """The ETKF's step record ``steps(key, state, y, settings) -> dict`` (FilterSpec.steps)."""
+
+    def update_steps(key, prior, y, settings):
+        del key
+        white = operator.whiten(settings, y)
+        return etkf_steps(prior, white.observe(prior), white.obs, white.variance, solver)
+
+    return steps_with_inflation(update_steps, pieces)
 
 
 def make_etkf(operator, members: int, pieces=frozenset(), adaptive: bool = False, solver: str = "eigh") -> Filter:
@@ -86,4 +116,5 @@ SPEC = FilterSpec(
     reports_inflation=lambda node: bool(node.adaptive),
     smoothable=lambda node: True,
     estimates=True,
+    steps=lambda node, ctx: make_etkf_steps(ctx.operator, inflation_pieces(node), str(node.transform_solver)),
 )

@@ -31,9 +31,10 @@ def inflate_anomalies(members: jax.Array, factor) -> jax.Array:
     return mean + factor * (members - mean)
 
 
-def add_centred_noise(key, members: jax.Array, std) -> jax.Array:
-    """x_i <- x_i + std (e_i - ebar), e_i ~ N(0, I); members (N, n)."""
-    noise = jax.random.normal(key, members.shape)
+def add_centred_noise(key, members: jax.Array, std, draws=None) -> jax.Array:
+    """x_i <- x_i + std (e_i - ebar), e_i ~ N(0, I) drawn from ``key`` (or the given ``draws``);
+    members (N, n)."""
+    noise = jax.random.normal(key, members.shape) if draws is None else draws
     return members + std * (noise - noise.mean(axis=0))
 
 
@@ -114,6 +115,37 @@ def with_inflation(update, pieces=frozenset(), global_update=None):
         return (posterior, info) if lagged is None else (posterior, lagged, info)
 
     return analyse
+
+
+def steps_with_inflation(update_steps, pieces=frozenset()):
+    """The step record (reference vectors: assimbench/vectors) of :func:`with_inflation` around an
+    update: ``steps(key, state, y, settings) -> dict`` with the additive draws when that piece is on,
+    the prior ensemble the update sees, ``update_steps(key, prior, y, settings)``'s record, the
+    update's analysis before relaxation when RTPP or RTPS is on, and the analysis ensemble. The same
+    random keys as :func:`with_inflation`, so the record is the filter's own analysis."""
+
+    def steps(key, state, y, settings):
+        f = settings["filter"]
+        prior = inflate_anomalies(state.members, f["inflation"])
+        record = {}
+        update_key = key
+        if "additive" in pieces:
+            noise_key, update_key = jax.random.split(key)
+            record["additive_draws"] = jax.random.normal(noise_key, prior.shape)
+            prior = add_centred_noise(noise_key, prior, f["additive_std"], record["additive_draws"])
+        record["prior_ensemble"] = prior
+        record.update(update_steps(update_key, prior, y, settings))
+        posterior = record.pop("analysis_ensemble")
+        if "rtpp" in pieces or "rtps" in pieces:
+            record["update_ensemble"] = posterior
+        if "rtpp" in pieces:
+            posterior = relax_to_prior_perturbations(prior, posterior, f["rtpp"])
+        if "rtps" in pieces:
+            posterior = relax_to_prior_spread(prior, posterior, f["rtps"])
+        record["analysis_ensemble"] = posterior
+        return record
+
+    return steps
 
 
 def ensemble_filter(name: str, members: int, update, pieces=frozenset(), reports_inflation: bool = False,

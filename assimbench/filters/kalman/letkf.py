@@ -45,7 +45,13 @@ from assimbench.filters.kalman.adaptive import (
     check_adaptive_inflation,
 )
 from assimbench.filters.kalman.ensemble_space import ensemble_space
-from assimbench.filters.kalman.inflation import INFLATION_KEYS, WIDEST, ensemble_filter, inflation_pieces
+from assimbench.filters.kalman.inflation import (
+    INFLATION_KEYS,
+    WIDEST,
+    ensemble_filter,
+    inflation_pieces,
+    steps_with_inflation,
+)
 from assimbench.filters.kalman.precision_solvers import check_transform_solver, solve_precision
 from assimbench.localization import gaspari_cohn, radius_of, radius_setting, ring_distance, with_radius_check
 from assimbench.observations.operators import decoupled
@@ -194,17 +200,57 @@ def letkf_with_parameters(members, parameters, white, local_index, local_weight,
     return analysed, centre + weights.mean(axis=0).T @ (parameters - centre)
 
 
-def make_letkf(model, operator, members: int, radius: float | None, pieces=frozenset(),
-               adaptive: bool = False, solver: str = "eigh") -> Filter:
-    """LETKF on a ring model. ``radius`` (the configured c) fixes the static observation window
-    (2c); the traced ``settings["filter"]["radius"]`` sets the taper inside it. With
-    ``radius=None`` every grid point sees every observation with weight 1."""
+def localization_of(model, operator, radius: float | None):
+    """(index, mask, ``local_weight(settings)``): the static windows of :func:`local_windows` (2c wide for
+    the configured ``radius`` c) and the traced Gaspari-Cohn weights inside them (n, K); every
+    weight 1 without localization (``radius`` None)."""
     index, distance, mask = local_windows(model.size, operator.positions, radius)
 
     def local_weight(settings):
         if radius is None:
             return jnp.asarray(mask, dtype=jnp.float64)
         return jnp.where(mask, gaspari_cohn(distance / settings["filter"]["radius"]), 0.0)
+
+    return index, mask, local_weight
+
+
+def make_letkf_steps(model, operator, radius: float | None, pieces=frozenset(), solver: str = "eigh"):
+    """The LETKF's step record ``steps(key, state, y, settings) -> dict`` (FilterSpec.steps; R diagonal)."""
+    index, _, local_weight = localization_of(model, operator, radius)
+
+    def update_steps(key, prior, y, settings):
+        del key
+        white = operator.whiten(settings, y)
+        return letkf_steps(prior, white.observe(prior), white.obs, white.variance, index, local_weight(settings),
+                           solver)
+
+    return steps_with_inflation(update_steps, pieces)
+
+
+def letkf_steps(members, obs_members, y, error_var, local_index, local_weight, solver: str = "eigh") -> dict:
+    """:func:`letkf_analysis` (R diagonal) step by step, for reference vectors
+    (assimbench/vectors/quantities.py): h(x_b,i), the innovation, the localization weights rho_gj
+    (n, p) dense, every grid point's A_g, wbar_g and W_g, and the analysis, in that order."""
+    n_members, n_grid = members.shape
+    space = ensemble_space(members, obs_members, 1.0)
+    # Padding entries of a window carry weight 0, so adding them leaves their station's weight alone.
+    dense = jnp.zeros((n_grid, obs_members.shape[1])).at[jnp.arange(n_grid)[:, None], local_index].add(local_weight)
+    precision, rhs = local_systems(space, y, error_var, local_index, local_weight)
+    solved = solve_precision(precision, n_members - 1.0, solver)
+    weights_mean, transform = solved.apply_inverse(rhs), solved.inverse_root(jnp.sqrt(n_members - 1.0))
+    # x_a[i, g] = xbar_g + sum_j (wbar_g,j + W_g,ij) X[j, g]  (W_g symmetric)
+    analysed = space.mean + jnp.einsum("gij,jg->ig", weights_mean[:, None, :] + transform, space.anomalies)
+    return {"predicted_observations": obs_members, "innovation": y - space.obs_mean, "localization_weights": dense,
+            "local_precision": precision, "local_mean_weights": weights_mean, "local_transform": transform,
+            "analysis_ensemble": analysed}
+
+
+def make_letkf(model, operator, members: int, radius: float | None, pieces=frozenset(),
+               adaptive: bool = False, solver: str = "eigh") -> Filter:
+    """LETKF on a ring model. ``radius`` (the configured c) fixes the static observation window
+    (2c); the traced ``settings["filter"]["radius"]`` sets the taper inside it. With
+    ``radius=None`` every grid point sees every observation with weight 1."""
+    index, mask, local_weight = localization_of(model, operator, radius)
 
     def update(key, prior, y, settings):
         del key
@@ -249,4 +295,6 @@ SPEC = FilterSpec(
     reports_inflation=lambda node: bool(node.adaptive),
     smoothable=lambda node: True,
     estimates=True,
+    steps=lambda node, ctx: make_letkf_steps(ctx.model, ctx.operator, radius_of(node), inflation_pieces(node),
+                                             str(node.transform_solver)),
 )

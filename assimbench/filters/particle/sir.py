@@ -28,12 +28,15 @@ class ParticleState(NamedTuple):
 
 
 def systematic_resample(key, weights: jax.Array) -> jax.Array:
-    """Indices (N,) of the particles kept: one u ~ U[0, 1/N), points u + k/N on the weight CDF.
+    """Indices (N,) of the particles kept: one u ~ U[0, 1) drawn from ``key``
+    (:func:`systematic_indices`)."""
+    return systematic_indices(jax.random.uniform(key), weights)
 
-    Particle i is kept floor(N w_i) or ceil(N w_i) times (Kitagawa 1996).
-    """
+
+def systematic_indices(offset, weights: jax.Array) -> jax.Array:
+    """Indices (N,) of the particles kept for the offset u in [0, 1): the points (k + u) / N on the
+    weight CDF. Particle i is kept floor(N w_i) or ceil(N w_i) times (Kitagawa 1996)."""
     n = weights.shape[0]
-    offset = jax.random.uniform(key)
     cdf = jnp.cumsum(weights)
     cdf = cdf.at[-1].set(1.0)  # round-off must not lose the last particle
     # Point k = (k + u) / N goes to the first particle whose CDF exceeds it. Particle i's
@@ -50,15 +53,18 @@ def effective_sample_size(log_weights: jax.Array) -> jax.Array:
     return jnp.exp(-logsumexp(2.0 * log_weights))
 
 
-def make_sir(operator, members: int) -> Filter:
-    """SIR filter; settings ``filter.ess_threshold`` (fraction of N) and ``filter.jitter`` are traced."""
+def make_sir_with_steps(operator, members: int) -> tuple:
+    """(SIR filter, its step record for reference vectors (FilterSpec.steps)); settings
+    ``filter.ess_threshold`` (fraction of N) and ``filter.jitter`` are traced."""
 
     def init(key, initial_ensemble, settings):
         del key, settings
         # An explicit dtype: a weakly typed carry would make the second chunk recompile.
         return ParticleState(initial_ensemble, jnp.full(members, -np.log(members), dtype=jnp.float64))
 
-    def analyse(key, state, y, settings):
+    def steps(key, state, y, settings):
+        """The analysis step by step (reference vectors: assimbench/vectors/quantities.py); the
+        analysis below takes its particles and weights from it."""
         white = operator.whiten(settings, y)  # with a correlated R, |L^-1 (y - h(x))|^2: the full R
         error_var = white.variance
         departures = white.obs - white.observe(state.members)
@@ -70,19 +76,32 @@ def make_sir(operator, members: int) -> Filter:
         log_weights = log_weights - logsumexp(log_weights)
         ess = effective_sample_size(log_weights)
         resample_key, jitter_key = jax.random.split(key)
-        chosen = systematic_resample(resample_key, jnp.exp(log_weights))
+        offset = jax.random.uniform(resample_key)
+        chosen = systematic_indices(offset, jnp.exp(log_weights))
         # Single-precision draws: regularisation noise whose last digits carry no meaning, and
         # the threefry bits behind a double normal cost twice as much (measured: 3,000 normals
         # 175 us in double, 72 us in single; the whole SIR cycle is about 340 us).
-        noise = settings["filter"]["jitter"] * jax.random.normal(
-            jitter_key, state.members.shape, dtype=jnp.float32
-        ).astype(jnp.float64)
+        draws = jax.random.normal(jitter_key, state.members.shape, dtype=jnp.float32).astype(jnp.float64)
         resample = ess < settings["filter"]["ess_threshold"] * members
-        particles = jnp.where(resample, state.members[chosen] + noise, state.members)
-        log_weights = jnp.where(resample, jnp.full(members, -np.log(members), dtype=jnp.float64), log_weights)
-        return ParticleState(particles, log_weights), {"ess": ess, "resampled": resample}
+        particles = jnp.where(resample, state.members[chosen] + settings["filter"]["jitter"] * draws, state.members)
+        return {"resampling_offset": offset, "jitter_draws": draws, "updated_log_weights": log_weights,
+                "effective_sample_size": ess, "resampled": resample.astype(jnp.int32),
+                "resampled_indices": jnp.where(resample, chosen, jnp.arange(members)),
+                "analysis_ensemble": particles,
+                "analysis_log_weights": jnp.where(resample, jnp.full(members, -np.log(members), dtype=jnp.float64),
+                                                  log_weights)}
 
-    return Filter(name="sir", members=members, init=init, analyse=analyse, weighted=True)
+    def analyse(key, state, y, settings):
+        record = steps(key, state, y, settings)
+        return (ParticleState(record["analysis_ensemble"], record["analysis_log_weights"]),
+                {"ess": record["effective_sample_size"], "resampled": record["resampled"].astype(bool)})
+
+    return Filter(name="sir", members=members, init=init, analyse=analyse, weighted=True), steps
+
+
+def make_sir(operator, members: int) -> Filter:
+    """SIR filter (:func:`make_sir_with_steps`)."""
+    return make_sir_with_steps(operator, members)[0]
 
 
 @dataclass
@@ -109,4 +128,5 @@ SPEC = FilterSpec(
     check=_check,
     traced=("jitter", "ess_threshold"),
     weighted=True,
+    steps=lambda node, ctx: make_sir_with_steps(ctx.operator, int(node.members))[1],
 )

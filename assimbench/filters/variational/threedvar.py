@@ -50,6 +50,29 @@ def gauss_newton_3dvar(background, y, b_cov, error_var, h, iterations: int):
     return jnp.concatenate([background[None], path], axis=0)
 
 
+def make_3dvar_steps(operator, climate_cov, iterations: int):
+    """3D-Var's step record ``steps(key, state, y, settings) -> dict`` for reference vectors
+    (FilterSpec.steps; R diagonal): the innovation y - h(x_b), J and grad J at the background, the
+    gain B H^T (H B H^T + R)^-1 at the background, J at the analysis and the analysis."""
+    climate_cov = jnp.asarray(climate_cov)
+
+    def steps(key, state, y, settings):
+        del key
+        background = state.members[0]
+        b_cov = settings["filter"]["b_scale"] * climate_cov
+        white = operator.whiten(settings, y)
+        cost = lambda x: threedvar_cost(x, background, white.obs, b_cov, white.variance, white.observe)
+        jac = jax.jacfwd(white.observe)(background)
+        gain = jnp.linalg.solve(jac @ b_cov @ jac.T + _diagonal(white.variance, jac.shape[0]), jac @ b_cov).T
+        path = gauss_newton_3dvar(background, white.obs, b_cov, white.variance, white.observe,
+                                  1 if operator.linear else iterations)
+        return {"innovation": white.obs - white.observe(background), "cost_at_background": cost(background),
+                "gradient_at_background": jax.grad(cost)(background), "gain": gain,
+                "cost_at_analysis": cost(path[-1]), "analysis_ensemble": path[-1][None, :]}
+
+    return steps
+
+
 def make_3dvar(operator, climate_cov, iterations: int) -> Filter:
     """3D-Var; ``settings["filter"]["b_scale"]`` multiplies the climatological covariance (n, n)."""
     climate_cov = jnp.asarray(climate_cov)
@@ -97,4 +120,5 @@ SPEC = FilterSpec(
     traced=("b_scale",),
     members=lambda node: 1,
     climatology=True,
+    steps=lambda node, ctx: make_3dvar_steps(ctx.operator, climatology(ctx.model)[1], int(node.iterations)),
 )

@@ -1,0 +1,1 @@
+"""Reference vectors: the analysis step recorded for a port to be checked against (assimbench-vectors)."""
