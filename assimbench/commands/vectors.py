@@ -31,6 +31,10 @@ from assimbench.vectors.vector_file import FILE_KIND, VectorsFileError, read_por
 from assimbench.vectors.writing import write
 
 COMMAND = "assimbench-vectors"
+WRITE_DETAILS = """
+write's own keys: vectors.count=K [5] cycles spread over the run, the last at its end;
+vectors.at=[c1,c2,...] the cycles themselves; output=FILE [vectors.h5]. Filters with vectors:
+etkf, letkf, ensrf, enkf, 3dvar, sir (any inflation pieces)."""
 EXIT_FAILED = 1
 DEFAULT_OUTPUT = "vectors.h5"
 # The main config's own default output names a result file; a vectors file gets its own name.
@@ -46,7 +50,11 @@ def split_write_arguments(argv: list) -> tuple:
             if item in ("-m", "--multirun"):
                 raise ConfigError("vectors hold one experiment: drop -m and the comma lists")
             if equals and key.lstrip("+") == "output":
+                if value in ("null", "None", ""):
+                    raise ConfigError(f"output={value} is not allowed: the vectors file's name (default {DEFAULT_OUTPUT})")
                 output = value
+            if equals and "," in value and not value.startswith("["):
+                raise ConfigError(f"{item}: vectors hold one experiment: give one value per key (no comma lists)")
             rest.append(item)
             continue
         if key == "vectors.count":
@@ -84,12 +92,16 @@ def run_write(argv: list) -> int:
     except ConfigError as err:
         return fail(COMMAND, str(err))
     vectors = read_vectors(path)
+    members = int(vectors.attrs["members"])
     print(f"{COMMAND}: wrote {path}")
-    print(f"  filter {vectors.attrs['filter']}, {vectors.attrs['members']} members, state size "
+    print(f"  filter {vectors.attrs['filter']}, {members} member{'s' if members > 1 else ''}, state size "
           f"{vectors.attrs['state_size']}, {vectors.attrs['observation_count']} observations; seed "
           f"{vectors.attrs['seed']}, cycles {', '.join(str(c) for c in cycles)}")
     print(f"  compared quantities, in the order computed: {', '.join(vectors.order)}")
     print(f"  check a port with: {COMMAND} check {os.path.relpath(path)} PORT.h5")
+    if "resampled" in vectors.arrays and not np.any(vectors.arrays["resampled"]):
+        print("  note: no recorded cycle resampled, so the resampling offset and jitter draws are unused; record "
+              "other cycles (vectors.at) or raise filter.ess_threshold to cover resampling")
     return 0
 
 
@@ -112,22 +124,44 @@ def refuse_output(output: str) -> None:
 
 
 def parse_tolerances(items: list) -> dict:
+    """NAME=VALUE pairs: NAME a quantity (bare, or with its group as the check prints it) or all."""
     tolerances = {}
     for item in items:
         name, equals, value = item.partition("=")
+        name = name.strip().rpartition("/")[2]
         try:
             tolerance = float(value) if equals else -1.0
         except ValueError:
             tolerance = -1.0
-        if not tolerance >= 0.0:
-            raise VectorsFileError(f"--tolerance {item} is not allowed: NAME=VALUE with a relative tolerance >= 0, "
-                                   "NAME a quantity or all")
+        if not name or not tolerance >= 0.0:
+            raise VectorsFileError(f"--tolerance {item} is not allowed: NAME=VALUE with NAME a quantity (e.g. "
+                                   "analysis_ensemble) or all, and VALUE a relative tolerance >= 0")
+        if name in QUANTITIES and QUANTITIES[name].integer:
+            raise VectorsFileError(f"--tolerance {item} is not allowed: {name} is an integer quantity, compared exactly")
         tolerances[name] = tolerance
     return tolerances
 
 
+def refuse_table(table: str) -> None:
+    """VectorsFileError when the CSV table cannot be written at ``table``."""
+    folder = os.path.dirname(os.path.abspath(table))
+    if os.path.isdir(table):
+        raise VectorsFileError(f"--table {table} is a folder; give a file name")
+    if not os.path.isdir(folder):
+        raise VectorsFileError(f"--table {table}: the folder {folder} does not exist")
+    why = unwritable(folder)
+    if why is not None:
+        raise VectorsFileError(why)
+
+
 def check_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog=f"{COMMAND} check", description="Check a port's file against vectors.")
+    parser = argparse.ArgumentParser(
+        prog=f"{COMMAND} check",
+        description="Check a port's file (HDF5 or netCDF-4: the compared quantities at the vectors' paths and shapes, "
+                    "e.g. /outputs/analysis_ensemble) against vectors. Exit status 0 all within tolerance, 1 a "
+                    "quantity outside it, 2 bad input.",
+        epilog="Default tolerances: 1e-9 of each quantity's scale (1e-8 for the 3D-Var cost, gradient and analysis), "
+               "integer quantities exact.")
     parser.add_argument("vectors", help="the vectors file (assimbench-vectors write)")
     parser.add_argument("port", help="the port's file: the compared quantities at the same paths and shapes")
     parser.add_argument("--tolerance", action="append", default=[], metavar="NAME=VALUE",
@@ -142,17 +176,18 @@ def run_check(argv: list) -> int:
     args = check_parser().parse_args(argv)
     try:
         vectors = read_vectors(args.vectors)
-        port = read_port(args.port, vectors)
+        port, ignored = read_port(args.port, vectors)
         if args.table is not None:
-            why = unwritable(os.path.dirname(os.path.abspath(args.table)))
-            if why is not None:
-                raise VectorsFileError(why)
+            refuse_table(args.table)
         report = compare(vectors, port, parse_tolerances(args.tolerance), args.any_member_order)
     except (VectorsFileError, ValueError) as err:
         return fail(COMMAND, str(err))
     if args.table is not None:
         write_text(args.table, table_csv(report))
-    print("\n".join(report_lines(vectors, report, args)))
+    lines = report_lines(vectors, report, args)
+    if ignored:
+        lines.insert(1, f"  not quantities of these vectors (ignored; misspelt or misplaced?): {', '.join(ignored)}")
+    print("\n".join(lines))
     return 0 if report.passed else EXIT_FAILED
 
 
@@ -197,13 +232,14 @@ def table_csv(report) -> str:
 
 def main(argv=None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
+    usage = __doc__.replace("``", "").replace(":mod:", "").replace("`", "")
     if not argv or argv[0] in ("-h", "--help"):
-        print(__doc__.replace("``", ""))
+        print(usage)
         return 0 if argv else 2
     action, rest = argv[0], argv[1:]
     if action == "write":
         if any(a in ("-h", "--help") for a in rest):
-            print(__doc__.replace("``", ""))
+            print(usage + WRITE_DETAILS)
             return 0
         return run_write(rest)
     if action == "check":

@@ -77,8 +77,9 @@ QUANTITIES = {
                                "e_i ~ N(0, I): additive inflation adds additive_std (e_i - mean_k e_k)",
                                member_ordered=True),
     "observation_perturbation_draws": Quantity("draws", ("member", "observation"), "1",
-                                               "e_i ~ N(0, I): member i assimilates y + sqrt(r) (e_i - mean_k e_k) "
-                                               "(the mean removed only when centre_perturbations is true)",
+                                               "e_i ~ N(0, I): member i assimilates y + sqrt(r) (e_i - mean_k e_k) when "
+                                               "filter.centre_perturbations is true (attribute of /settings), "
+                                               "else y + sqrt(r) e_i",
                                                member_ordered=True),
     "resampling_offset": Quantity("draws", (), "1", "u ~ U[0, 1): systematic resampling takes the points (k + u) / N"),
     "jitter_draws": Quantity("draws", ENSEMBLE, "1",
@@ -112,15 +113,19 @@ QUANTITIES = {
                                 "W_g = sqrt(N - 1) A_g^(-1/2), the symmetric square root", member_ordered=True),
     "serial_gain": Quantity("intermediates", ("observation", "state"), "state units / observation units",
                             "K_j = rho_j * cov(x, h_j) / (var(h_j) + r_j), observation j assimilated after "
-                            "observations 1 .. j-1 (Whitaker & Hamill 2002, eq. 4-13)"),
+                            "observations 1 .. j-1, h(x) carried along as state; mean += K_j (y_j - mean h_j), "
+                            "anomalies -= alpha K_j h'_j, alpha = 1 / (1 + sqrt(r_j / (var(h_j) + r_j))) "
+                            "(Whitaker & Hamill 2002, eq. 4-13)"),
     "serial_mean": Quantity("intermediates", ("observation", "state"), "state units",
                             "the ensemble mean after observations 1 .. j are assimilated"),
     "perturbed_observations": Quantity("intermediates", ("member", "observation"), "observation units",
-                                       "y + sqrt(r) (e_i - mean_k e_k), e_i from observation_perturbation_draws",
+                                       "y + sqrt(r) (e_i - mean_k e_k), or y + sqrt(r) e_i when "
+                                       "filter.centre_perturbations is false; e_i from observation_perturbation_draws",
                                        member_ordered=True),
     "gain": Quantity("intermediates", ("state", "observation"), "state units / observation units",
-                     "K = X^T Y (Y^T Y + (N - 1) R)^-1 for the EnKF (X, Y anomalies of x_b and h(x_b)); "
-                     "K = B H^T (H B H^T + R)^-1 for 3D-Var"),
+                     "K = X^T Y (Y^T Y + (N - 1) R)^-1 for the EnKF (X, Y anomalies of x_b and h(x_b)), whose "
+                     "member i becomes x_b,i + K (y_i - h(x_b,i)), y_i the perturbed observations; "
+                     "K = B H^T (H B H^T + R)^-1 for 3D-Var, at the background"),
     "cost_at_background": Quantity("intermediates", (), "1",
                                    "J(x_b) = 1/2 (y - h(x_b))^T R^-1 (y - h(x_b))", VARIATIONAL),
     "gradient_at_background": Quantity("intermediates", ("state",), "1 / state units",
@@ -134,13 +139,19 @@ QUANTITIES = {
     "resampled": Quantity("intermediates", (), "1", "1 when effective_sample_size < ess_threshold x N, else 0",
                           EXACT),
     "resampled_indices": Quantity("intermediates", ("member",), "1",
-                                  "k_i: the forecast particle (0-based) that analysis particle i copies (systematic "
-                                  "resampling, Kitagawa 1996); i itself when not resampled", EXACT, member_ordered=True),
+                                  "k_i: the forecast particle (0-based) that analysis particle i copies: the first k "
+                                  "with cumsum(w)_k > (i + u) / N (systematic resampling, Kitagawa 1996); i itself "
+                                  "when not resampled", EXACT, member_ordered=True),
     "update_ensemble": Quantity("intermediates", ENSEMBLE, "state units",
-                                "the update's analysis before relaxation (RTPP, RTPS)", member_ordered=True),
+                                "the update's analysis x_u before relaxation to the prior x_b (prior_ensemble): RTPP "
+                                "x_a = xbar_u + (1 - a)(x_u - xbar_u) + a (x_b - xbar_b); RTPS x_a = xbar_u + (x_u - "
+                                "xbar_u)(a (s_b - s_u) / s_u + 1), s the per-variable spread (N - 1); RTPP first",
+                                member_ordered=True),
     # Outputs: compared.
     "analysis_ensemble": Quantity("outputs", ENSEMBLE, "state units", "x_a,i", member_ordered=True),
-    "analysis_log_weights": Quantity("outputs", ("member",), "1", "log w_a,i, normalised", member_ordered=True),
+    "analysis_log_weights": Quantity("outputs", ("member",), "1",
+                                     "log w_a,i: updated_log_weights, or -log N for every particle after resampling",
+                                     member_ordered=True),
     "analysis_mean": Quantity("outputs", ("state",), "state units", "xbar_a = sum_i w_i x_a,i (w_i = 1/N unweighted)"),
     "analysis_covariance": Quantity("outputs", ("state", "state_column"), "state units^2",
                                     "P_a = sum_i w_i (x_a,i - xbar_a)(x_a,i - xbar_a)^T N / (N - 1) (w_i = 1/N "
@@ -160,7 +171,8 @@ CONVENTIONS = {
     "convention_ensemble_space": "A, wbar, W and T act on the anomalies of the prior ensemble, rows first: "
                                  "x_a,i = xbar + sum_j (wbar_j + W_ji) X_j; W is symmetric, so no sign or "
                                  "eigenvector convention enters any stored quantity",
-    "convention_localization": "radius c is the Gaspari-Cohn half-width in grid units (weights reach 0 at 2c); "
+    "convention_localization": "radius c is the Gaspari-Cohn half-width in grid units (weights reach 0 at 2c), "
+                               "distances taken around the periodic ring (the shorter way); "
                                "the LETKF divides each local r_j by rho_gj, the EnSRF multiplies its gain by rho",
 }
 

@@ -10,7 +10,7 @@
            observation_transform, seed, replicate, experiment_key, config (YAML),
            computed_in_order, the conventions (convention_*), library versions, complete
 
-Every dataset carries ``units``, ``formula`` and ``dimensions`` attributes
+Every quantity's dataset carries ``units``, ``formula`` and ``dimensions`` attributes
 (:mod:`assimbench.vectors.quantities`) besides its HDF5 dimension scales, so that
 ``xarray.open_dataset(path, group="outputs", engine="h5netcdf")`` shows named dimensions.
 
@@ -47,9 +47,11 @@ class Vectors(NamedTuple):
     attrs: dict
 
 
-def write_vectors(path: str, cycles: np.ndarray, arrays: dict, settings: dict, attrs: dict) -> str:
-    """Write ``arrays`` (name -> array, in the order computed) with ``settings`` (name -> float) and
-    the root ``attrs`` to ``path`` through a temporary name; returns the absolute path."""
+def write_vectors(path: str, cycles: np.ndarray, arrays: dict, settings: dict, attrs: dict,
+                  static: dict | None = None) -> str:
+    """Write ``arrays`` (name -> array, in the order computed) with ``settings`` (name -> float), the
+    filter's ``static`` keys (attributes of /settings) and the root ``attrs`` to ``path`` through a
+    temporary name; returns the absolute path."""
     sizes = {"cycle": len(cycles), "member": arrays["forecast_ensemble"].shape[1],
              "state": arrays["forecast_ensemble"].shape[2], "observation": arrays["observations"].shape[1]}
     sizes["ensemble_row"] = sizes["ensemble_column"] = sizes["member"]
@@ -77,6 +79,7 @@ def write_vectors(path: str, cycles: np.ndarray, arrays: dict, settings: dict, a
             for axis, dim in enumerate(dims):
                 dataset.dims[axis].attach_scale(scales[dim])
         group = f.create_group("settings")
+        group.attrs.update(static or {})
         for name, value in settings.items():
             group.create_dataset(name, data=np.asarray(value, dtype=np.float64))
         f.attrs["complete"] = 1
@@ -113,17 +116,26 @@ def read_vectors(path: str) -> Vectors:
         except (OSError, KeyError) as err:
             raise VectorsFileError(f"vectors file {path} is corrupt ({err})") from None
     order = tuple(name for name in attrs.get("computed_in_order", "").split(",") if name in arrays)
+    damaged = [name for name in order if not np.all(np.isfinite(arrays[name]))]
+    if damaged:  # the bench never writes a non-finite analysis (the self-check refuses it)
+        raise VectorsFileError(f"vectors file {path} is corrupt: {path_of(damaged[0])} holds values that are not "
+                               "finite")
     return Vectors(cycles, arrays, order, attrs)
 
 
-def read_port(path: str, vectors: Vectors) -> dict:
-    """The compared quantities a port file gives (name -> array), checked against ``vectors``: the
-    same shapes, the same cycles when the port stores ``/cycle``; VectorsFileError otherwise, or when
-    it gives none of them."""
+def read_port(path: str, vectors: Vectors) -> tuple:
+    """(the compared quantities a port file gives, name -> array; the paths of its other datasets
+    under /intermediates, /outputs or at the root, which are not compared: a misspelt or misplaced
+    quantity shows there), checked against ``vectors``: the same shapes, the same cycles when the
+    port stores ``/cycle``; VectorsFileError otherwise, or when it gives none of them."""
     with _open(path, "port") as f:
         try:
             found = {name: f[path_of(name)][()] for name in vectors.order if path_of(name) in f}
             port_cycles = f["cycle"][()] if "cycle" in f and isinstance(f["cycle"], h5py.Dataset) else None
+            ignored = [name for name, item in f.items() if isinstance(item, h5py.Dataset) and name not in SCALES]
+            for group in ("intermediates", "outputs"):
+                if isinstance(f.get(group), h5py.Group):
+                    ignored += [f"{group}/{name}" for name in f[group] if name not in found]
         except (OSError, KeyError, TypeError) as err:
             raise VectorsFileError(f"port file {path} is corrupt ({err})") from None
     if not found:
@@ -141,7 +153,7 @@ def read_port(path: str, vectors: Vectors) -> dict:
                                    f"{expected} ({dims})")
         if not np.issubdtype(values.dtype, np.number) and values.dtype != bool:
             raise VectorsFileError(f"port file {path}: {path_of(name)} is not numeric ({values.dtype})")
-    return found
+    return found, ignored
 
 
 def _cycles_text(cycles) -> str:

@@ -63,7 +63,8 @@ def chosen_cycles(count: int, at, total: int) -> np.ndarray:
     if at is not None:
         cycles = np.asarray(at)
         if cycles.ndim != 1 or cycles.size == 0 or not all(float(c).is_integer() for c in cycles):
-            raise ConfigError(f"vectors.at={list(np.ravel(at))} is not allowed: a non-empty list of cycle numbers")
+            shown = ",".join(f"{float(c):g}" for c in np.ravel(at))
+            raise ConfigError(f"vectors.at=[{shown}] is not allowed: a non-empty list of whole cycle numbers")
         cycles = cycles.astype(np.int64)
         if cycles.min() < 1 or cycles.max() > total or np.any(np.diff(cycles) <= 0):
             raise ConfigError(f"vectors.at={cycles.tolist()} is not allowed: increasing cycle numbers from 1 to "
@@ -173,7 +174,8 @@ def flat_settings(settings: dict) -> dict:
 
 def write(cfg, output: str, count: int = 5, at=None) -> tuple:
     """Check ``cfg``, record the analyses at the chosen cycles and write them to ``output``; returns
-    (absolute path, the cycles). ConfigError (nothing written) for a config that cannot give vectors."""
+    (absolute path, the cycles). ConfigError (nothing written) for a config that cannot give vectors.
+    The filter's untraced keys (members, centre_perturbations, ...) are attributes of /settings."""
     plan = plan_vectors(cfg)
     cycles = chosen_cycles(count, at, plan.cycles)
     _, arrays = record(plan, cycles)
@@ -183,4 +185,6 @@ def write(cfg, output: str, count: int = 5, at=None) -> tuple:
              "observation_transform": operator.transform, "weighted": int(plan.setup.filter.weighted),
              "seed": plan.seed, "replicate": 0, "experiment_key": plan.experiment_keys[0],
              "config": OmegaConf.to_yaml(plan.config, resolve=True)}
-    return write_vectors(output, cycles, arrays, flat_settings(plan.settings), attrs), cycles
+    static = {f"filter.{key}": value for key, value in OmegaConf.to_container(plan.config.filter).items()
+              if isinstance(value, (bool, int, str)) and key not in plan.settings["filter"]}
+    return write_vectors(output, cycles, arrays, flat_settings(plan.settings), attrs, static), cycles

@@ -136,7 +136,7 @@ def test_the_file_alone_replays_every_analysis(written, name, tmp_path):
         f.create_dataset(path_of("analysis_ensemble"), data=replayed)
         if name == "sir":  # resampled at every analysis: equal weights
             f.create_dataset(path_of("analysis_log_weights"), data=np.full(replayed.shape[:2], -np.log(replayed.shape[1])))
-    report = compare(vectors, read_port(str(port), vectors))
+    report = compare(vectors, read_port(str(port), vectors)[0])
     assert report.passed and max(row.relative for row in report.rows) < 1e-12
     assert {"analysis_mean"} <= {row.name for row in report.rows if row.derived}
 
@@ -243,7 +243,7 @@ def _vectors(path):
 
 def test_an_independent_numpy_etkf_passes(plain_etkf, tmp_path):
     vectors = _vectors(plain_etkf)
-    report = compare(vectors, read_port(_port_of(vectors, tmp_path), vectors))
+    report = compare(vectors, read_port(_port_of(vectors, tmp_path), vectors)[0])
     assert report.passed, report.first_failure
     assert {"ensemble_precision", "transform", "analysis_weights", "analysis_ensemble", "analysis_covariance"} <= set(
         report.compared)
@@ -256,11 +256,11 @@ def test_a_convention_error_is_named_at_its_quantity_and_cycle(plain_etkf, tmp_p
     """The mistake starts at the second recorded cycle: the check names that cycle and the earliest
     quantity the mistake touches; with the analysis ensemble alone, it names the ensemble."""
     vectors = _vectors(plain_etkf)
-    report = compare(vectors, read_port(_port_of(vectors, tmp_path, mistake, from_index=1), vectors))
+    report = compare(vectors, read_port(_port_of(vectors, tmp_path, mistake, from_index=1), vectors)[0])
     failure = report.first_failure
     assert (failure.cycle, failure.name) == (vectors.cycles[1], first)
     assert failure.relative > 1e-4  # far outside any round-off
-    only = compare(vectors, read_port(_port_of(vectors, tmp_path, mistake, 1, ["analysis_ensemble"]), vectors))
+    only = compare(vectors, read_port(_port_of(vectors, tmp_path, mistake, 1, ["analysis_ensemble"]), vectors)[0])
     assert (only.first_failure.cycle, only.first_failure.name) == (vectors.cycles[1], "analysis_ensemble")
 
 
@@ -268,7 +268,7 @@ def test_tolerances_are_per_quantity(plain_etkf, tmp_path):
     """N in place of N - 1 departs by a few per cent (20 members): a tolerance of 0.5 on every float
     quantity lets it pass, a tolerance on one quantity moves the first failure to the next."""
     vectors = _vectors(plain_etkf)
-    port = read_port(_port_of(vectors, tmp_path, "ensemble-size"), vectors)
+    port = read_port(_port_of(vectors, tmp_path, "ensemble-size"), vectors)[0]
     assert compare(vectors, port, {"all": 0.5}).passed
     assert compare(vectors, port, {"ensemble_precision": 0.5}).first_failure.name == "mean_weights"
     with pytest.raises(ValueError, match="no quantity gain"):
@@ -283,7 +283,7 @@ def test_any_member_order_compares_the_moments(plain_etkf, tmp_path):
     path = tmp_path / "shuffled.h5"
     with h5py.File(path, "w") as f:
         f.create_dataset(path_of("analysis_ensemble"), data=shuffled)
-    port = read_port(str(path), vectors)
+    port = read_port(str(path), vectors)[0]
     assert compare(vectors, port).first_failure.name == "analysis_ensemble"
     report = compare(vectors, port, any_member_order=True)
     assert report.passed and set(report.compared) == {"analysis_mean", "analysis_covariance"}
@@ -406,3 +406,30 @@ def test_every_quantity_is_described():
     for name, quantity in QUANTITIES.items():
         assert quantity.formula and quantity.units and quantity.group in ("inputs", "draws", "intermediates",
                                                                          "outputs"), name
+
+
+def test_check_names_what_it_ignores_and_refuses_a_bad_table(plain_etkf, tmp_path, capsys):
+    """A misspelt quantity is named as ignored; a table into a folder, a damaged reference (values not
+    finite) and a tolerance on an integer quantity are bad input (exit 2), and nothing is written."""
+    port = tmp_path / "port.h5"
+    with h5py.File(port, "w") as f:
+        f.create_dataset(path_of("analysis_ensemble"), data=read_vectors(plain_etkf).arrays["analysis_ensemble"])
+        f.create_dataset("intermediates/transfrom", data=np.zeros(3))
+    assert command.main(["check", plain_etkf, str(port), "--tolerance", "outputs/analysis_ensemble=1e-12"]) == 0
+    assert "ignored; misspelt or misplaced?): intermediates/transfrom" in capsys.readouterr().out
+    folder = tmp_path / "folder"
+    folder.mkdir()
+    _one_line_exit_2(["check", plain_etkf, str(port), "--table", str(folder)], ["is a folder"], capsys)
+    assert os.listdir(folder) == []
+    _one_line_exit_2(["check", plain_etkf, str(port), "--tolerance", "resampled=0.5"], ["compared exactly"], capsys)
+    damaged = tmp_path / "damaged.h5"
+    damaged.write_bytes(open(plain_etkf, "rb").read())
+    with h5py.File(damaged, "a") as f:
+        f[path_of("transform")][0, 0, 0] = np.nan
+    _one_line_exit_2(["check", str(damaged), str(port)], ["corrupt", "intermediates/transform", "not finite"], capsys)
+
+
+def test_the_filters_untraced_keys_are_stored(written):
+    """What a port needs besides the traced settings, e.g. whether the EnKF centres its perturbations."""
+    with h5py.File(written["enkf"], "r") as f:
+        assert bool(f["settings"].attrs["filter.centre_perturbations"]) and f["settings"].attrs["filter.members"] == 16
