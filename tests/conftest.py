@@ -28,3 +28,19 @@ LONG = os.environ.get("ASSIMBENCH_LONG", "") == "1"
 @pytest.fixture(scope="session")
 def long_run():
     return LONG
+
+
+def _asked_for(config, name: str) -> bool:
+    """Whether the command line asks for tests of ``name`` by -k or -m."""
+    return name in (config.option.keyword or "") or name in (config.option.markexpr or "")
+
+
+def pytest_collection_modifyitems(config, items):
+    """The SLURM cluster test starts daemons and may install packages: it runs only when asked
+    (``pytest -k slurm``, as .ci/run does after the main suite), and says so otherwise."""
+    if _asked_for(config, "slurm"):
+        return
+    skip = pytest.mark.skip(reason="the SLURM cluster test runs with: pytest -k slurm (.ci/run runs it after the suite)")
+    for item in items:
+        if "slurm" in item.keywords:
+            item.add_marker(skip)

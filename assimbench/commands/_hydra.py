@@ -23,6 +23,7 @@ import itertools
 import os
 import re
 import sys
+import traceback
 
 import yaml
 from hydra.core.override_parser.overrides_parser import OverridesParser
@@ -315,10 +316,12 @@ def hydra_arguments(argv: list[str]):
         sys.argv = saved
 
 
-def run_command(command: str, argv, app, check, expand=lambda argv: argv, base: str = "config") -> int:
+def run_command(command: str, argv, app, check, expand=lambda argv: argv, base: str = "config",
+                finish=None) -> int:
     """The body of a Hydra console script: prepare Hydra, expand and check the arguments (one line and
     exit status 2 on bad input, before anything runs), then hand over to the Hydra ``app``, whose
-    primary config is the package's ``base``."""
+    primary config is the package's ``base``. ``finish(status) -> status``, when given, runs after
+    the app has ended, however it ended (a launcher that gave up on a failed job included)."""
     argv = list(sys.argv[1:] if argv is None else argv)
     prepare_hydra()
     try:
@@ -326,9 +329,20 @@ def run_command(command: str, argv, app, check, expand=lambda argv: argv, base: 
         check(argv)
     except ConfigError as err:
         return fail(command, str(err))
+    status = 0
     with hydra_arguments(argv):
-        app()
-    return 0
+        try:
+            app()
+        except SystemExit as stop:  # Hydra's report of a failed job, or a job's own exit
+            if finish is None:
+                raise
+            status = stop.code if isinstance(stop.code, int) else 1
+        except Exception:
+            if finish is None:
+                raise
+            traceback.print_exc()
+            status = 1
+    return status if finish is None else finish(status)
 
 
 def fail(command: str, message: str) -> int:

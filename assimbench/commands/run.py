@@ -35,6 +35,7 @@ from assimbench.config.checks import ConfigError
 from assimbench.config.composition import config_dir
 from assimbench.config.plan import resolve
 from assimbench.estimation.section import spread_warning
+from assimbench.io.atomic import PARTIAL_SUFFIX
 from assimbench.io.provenance import config_hash
 from assimbench.io.results import ResultFileError, read_result, stored_config_hash
 from assimbench.observations.networks import rms_error, station_count
@@ -44,21 +45,32 @@ from assimbench.twin.block_workers import WorkerFailed
 COMMAND = "assimbench"
 
 
+# The jobs of this call's multirun as the pre-flight found them: (config, Hydra node) pairs, for
+# the sweep's closing summary (:func:`sweep_summary`).
+_SWEEP = []
+
+
+def _job_output(cfg, hydra_node) -> str | None:
+    return None if cfg.get("output") is None else os.path.join(job_folder_of(hydra_node, True), str(cfg.output))
+
+
 def preflight(argv: list[str]) -> None:
     """Compose and check every job of ``argv`` and its folders; raise ConfigError on the first bad
     one (nothing to check for a call that only prints). For a multirun, say how many jobs already have a complete
     result (they are skipped)."""
     args, jobs = preflight_jobs(argv)
+    _SWEEP.clear()
     if informational(args):
         return
     if args.multirun:
+        _SWEEP.extend(jobs)
         # Each job's own output file, where the job will look for it: a complete result elsewhere in
         # the sweep (an older folder name) is not this job's and is not counted.
         skipped = 0
         for cfg, hydra_node in jobs:
-            if cfg.get("output") is None:
+            path = _job_output(cfg, hydra_node)
+            if path is None:
                 continue
-            path = os.path.join(job_folder_of(hydra_node, True), str(cfg.output))
             skipped += os.path.isfile(path) and stored_config_hash(path) == config_hash(cfg)
         if skipped:
             folder = str(jobs[0][1].sweep.dir)
@@ -499,9 +511,45 @@ def _from_file(argv: list[str]) -> list[str]:
     return overrides_from_config(stored.config) + rest
 
 
+def job_state(cfg, output: str | None) -> str:
+    """``complete`` (a complete result of this config), ``stopped`` (a ``.partial`` file: the job
+    started and did not finish), ``other config`` or ``missing``."""
+    if output is None:
+        return "complete"  # nothing was asked for
+    stored = stored_config_hash(output)
+    if stored is not None:
+        return "complete" if stored == config_hash(cfg) else "other config"
+    return "stopped" if os.path.exists(output + PARTIAL_SUFFIX) else "missing"
+
+
+def sweep_summary(status: int) -> int:
+    """After a multirun, however it ended: one line for the whole sweep, and one per job that has no
+    complete result (stopped, failed, cancelled, or never run), so that a launcher that gave up on a
+    failed job does not leave the user guessing; exit status 1 when any job is not complete."""
+    if not _SWEEP:
+        return status
+    states = [(job_folder_of(node, True), job_state(cfg, _job_output(cfg, node))) for cfg, node in _SWEEP]
+    unfinished = [(folder, state) for folder, state in states if state != "complete"]
+    folder = str(_SWEEP[0][1].sweep.dir)
+    if not unfinished:
+        print(f"{COMMAND}: sweep {folder}: all {len(states)} jobs complete", file=sys.stderr, flush=True)
+        return status
+    again = ("; run the same command again to finish the others (the complete ones are skipped)"
+             if any(state in ("stopped", "missing") for _, state in unfinished) else "")
+    print(f"{COMMAND}: sweep {folder}: {len(states) - len(unfinished)} of {len(states)} jobs complete{again}",
+          file=sys.stderr, flush=True)
+    for job, state in unfinished:
+        why = {"stopped": "started, did not finish (stopped, cancelled or failed; its .partial file is kept)",
+               "missing": "no result (failed before it wrote one, or never ran)",
+               "other config": "its folder holds a complete result of another config"}[state]
+        print(f"  {os.path.relpath(job, folder)}: {why}", file=sys.stderr, flush=True)
+    return status or 1
+
+
 def main(argv=None) -> int:
     """Entry point of the ``assimbench`` console script."""
-    return run_command(COMMAND, argv, _hydra_app, preflight, lambda args: _from_file(args) if "--from" in args else args)
+    return run_command(COMMAND, argv, _hydra_app, preflight, lambda args: _from_file(args) if "--from" in args else args,
+                       finish=sweep_summary)
 
 
 if __name__ == "__main__":

@@ -222,6 +222,26 @@ def test_the_submitit_launcher_in_local_mode_runs_a_job_end_to_end(tmp_path):
     assert len(files) == 1 and _members_of(files[0]) == "5"
 
 
+def test_a_sweep_ends_with_a_summary_naming_every_job_that_is_not_complete(tmp_path):
+    """A job that refuses its folder (a complete result of another config there, never overwritten) and
+    a job stopped part-way (its .partial kept) are named with their reason; the exit status is not 0."""
+    args = ["-m", "filter.members=5,6,7"] + SMALL[:-1] + ["hydra.sweep.dir=sweeps/s"]
+    assert _run(args, tmp_path).returncode == 0
+    folders = sorted(p for p in (tmp_path / "sweeps" / "s").iterdir() if p.is_dir() and p.name.startswith("burn"))
+    other = (folders[0] / "result.h5").read_bytes()
+    (folders[1] / "result.h5").write_bytes(other)
+    (folders[2] / "result.h5").rename(folders[2] / "result.h5.partial")
+    with h5py.File(folders[2] / "result.h5.partial", "a") as f:
+        f.attrs["complete"] = 0
+    again = _run(args, tmp_path)
+    assert again.returncode != 0
+    # The basic launcher stops at the refused job, so the stopped one after it is still not complete.
+    assert "sweep sweeps/s: 1 of 3 jobs complete; run the same command again" in again.stderr, again.stderr
+    assert f"{folders[1].name}: its folder holds a complete result of another config" in again.stderr
+    assert f"{folders[2].name}: started, did not finish" in again.stderr
+    assert (folders[1] / "result.h5").read_bytes() == other
+
+
 def test_the_progress_bar_stays_quiet_when_stderr_is_not_a_terminal(tmp_path):
     done = _run(SMALL + ["chunk_cycles=10"], tmp_path)
     assert done.returncode == 0 and done.stderr == ""
