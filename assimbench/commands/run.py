@@ -539,7 +539,8 @@ def sweep_summary(status: int) -> int:
     print(f"{COMMAND}: sweep {folder}: {len(states) - len(unfinished)} of {len(states)} jobs complete{again}",
           file=sys.stderr, flush=True)
     for job, state in unfinished:
-        why = {"stopped": "started, did not finish (stopped, cancelled or failed; its .partial file is kept)",
+        why = {"stopped": "started, did not finish (stopped, cancelled or failed, or still running on a cluster: "
+                          "check squeue before running again; its .partial file is kept)",
                "missing": "no result (failed before it wrote one, or never ran)",
                "other config": "its folder holds a complete result of another config"}[state]
         print(f"  {os.path.relpath(job, folder)}: {why}", file=sys.stderr, flush=True)

@@ -124,7 +124,8 @@ def test_a_cancelled_and_a_preempted_job_are_finished_by_running_again(cluster_e
     requeue does), the other cancelled mid-run. The requeued one runs again and completes; the
     sweep ends saying which job is not complete (exit 1, no hang); the same command run again
     runs only that job; the folder then equals an uninterrupted sweep's."""
-    overrides = ["filter.members=8,10", "cycles=60000", "burn_in=100", "model.size=20", "chunk_cycles=2000"]
+    # Long enough (about 10 s of cycling each, compile cache warm or not) to be caught mid-run.
+    overrides = ["filter.members=8,10", "cycles=400000", "burn_in=100", "model.size=20", "chunk_cycles=5000"]
     args = _slurm_sweep(overrides, tmp_path / "cluster")
     command = subprocess.Popen([os.path.join(BIN, "assimbench")] + args, env=cluster_env, cwd=tmp_path,
                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
@@ -136,7 +137,11 @@ def test_a_cancelled_and_a_preempted_job_are_finished_by_running_again(cluster_e
             break
         time.sleep(1)
     assert len(running) == 2, f"two jobs did not start: {_squeue(cluster_env)}"
-    time.sleep(8)  # mid-run: past compilation, some chunks done
+    # Mid-run: both jobs past compilation, their first chunks written to their .partial files.
+    partials = lambda: list((tmp_path / "cluster").glob("*/result.h5.partial"))
+    while time.time() < deadline and len(partials()) < 2:
+        time.sleep(0.5)
+    assert len(partials()) == 2 and not list((tmp_path / "cluster").glob("*/result.h5"))
     first, second = sorted(running, key=int)
     subprocess.run(["scontrol", "requeue", first], env=cluster_env, check=True, timeout=60)
     subprocess.run(["scancel", second], env=cluster_env, check=True, timeout=60)
