@@ -97,9 +97,14 @@ def test_a_lane_sweep_through_slurm_equals_the_same_sweep_run_locally(cluster_en
     # under their SLURM ids, and SLURM's accounting has them completed.
     tasks = sorted(name for name in os.listdir(tmp_path / "cluster" / ".submitit") if name[0].isdigit() and "_" in name)
     assert len(tasks) == 2, tasks
-    accounted = subprocess.run(["sacct", "-n", "-X", "-P", "-o", "JobID,State", "-j", tasks[0].split("_")[0]],
-                               env=cluster_env, capture_output=True, text=True, timeout=60).stdout.split()
-    assert sorted(accounted) == sorted(f"{task}|COMPLETED" for task in tasks), accounted
+    expected = sorted(f"{task}|COMPLETED" for task in tasks)
+    for _ in range(60):  # the accounting lags the result files by the jobs' epilogue: seconds
+        accounted = subprocess.run(["sacct", "-n", "-X", "-P", "-o", "JobID,State", "-j", tasks[0].split("_")[0]],
+                                   env=cluster_env, capture_output=True, text=True, timeout=60).stdout.split()
+        if sorted(accounted) == expected:
+            break
+        time.sleep(1)
+    assert sorted(accounted) == expected, accounted
     local = _assimbench(_local_sweep(overrides, tmp_path / "local"), cluster_env, tmp_path)
     assert local.returncode == 0, local.stderr[-2000:]
     _assert_same_results(_results(tmp_path / "cluster"), _results(tmp_path / "local"))
