@@ -18,7 +18,6 @@ from assimbench.config.catalogue import catalogue
 from assimbench.config.checks import ConfigError
 from assimbench.config.plan import Plan, resolve
 from assimbench.config.spec import FilterContext
-from assimbench.models.climatology import climatology
 from assimbench.vectors.capture import capture
 from assimbench.vectors.quantities import QUANTITIES
 from assimbench.vectors.vector_file import write_vectors
@@ -104,7 +103,8 @@ def record(plan: Plan, cycles: np.ndarray) -> tuple:
 
     per_cycle = lambda function: jax.jit(jax.vmap(function, in_axes=(0, 0, 0, None)))
     records = per_cycle(ordered_steps)(captured.keys, captured.states, captured.observations, settings)
-    records = {name: records[name] for name in computed}
+    # A quantity the same at every cycle (3D-Var's B, an input of the record) is stored once.
+    records = {name: records[name] if QUANTITIES[name].per_cycle else records[name][0] for name in computed}
     analysed, _ = per_cycle(setup.filter.analyse)(captured.keys, captured.states, captured.observations, settings)
     _self_check(records, analysed)
     weighted = setup.filter.weighted
@@ -121,19 +121,12 @@ def record(plan: Plan, cycles: np.ndarray) -> tuple:
         "observation_positions": np.asarray(view.positions, dtype=np.float64),
         "observation_matrix": observation_matrix(view, setup.forecaster.size),
     }
-    if plan.choice.filter.climatology:  # 3D-Var's B, the same at every cycle
-        inputs["background_covariance"] = background_covariance(plan)
     # One member (3D-Var) has no sample covariance.
     moments = {"analysis_mean": mean} | ({"analysis_covariance": covariance} if setup.filter.members > 1 else {})
     arrays = {**inputs, **records, **moments}
     order = sorted(arrays, key=lambda name: ("inputs", "draws", "intermediates", "outputs").index(
         QUANTITIES[name].group))
     return captured, {name: np.asarray(arrays[name]) for name in order}
-
-
-def background_covariance(plan: Plan):
-    """B = b_scale x C of a filter built on the forecast model's climatology C (3D-Var), (n, n)."""
-    return plan.settings["filter"]["b_scale"] * jnp.asarray(climatology(plan.setup.forecaster)[1])
 
 
 def ensemble_moments(members, log_weights=None) -> tuple:

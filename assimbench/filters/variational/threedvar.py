@@ -52,7 +52,7 @@ def gauss_newton_3dvar(background, y, b_cov, error_var, h, iterations: int):
 
 def make_3dvar_steps(operator, climate_cov, iterations: int):
     """3D-Var's step record ``steps(key, state, y, settings) -> dict`` for reference vectors
-    (FilterSpec.steps; R diagonal): the innovation y - h(x_b), J and grad J at the background, the
+    (FilterSpec.steps; R diagonal): B, the innovation y - h(x_b), J and grad J at the background, the
     gain B H^T (H B H^T + R)^-1 at the background, J at the analysis and the analysis."""
     climate_cov = jnp.asarray(climate_cov)
 
@@ -66,7 +66,8 @@ def make_3dvar_steps(operator, climate_cov, iterations: int):
         gain = jnp.linalg.solve(jac @ b_cov @ jac.T + _diagonal(white.variance, jac.shape[0]), jac @ b_cov).T
         path = gauss_newton_3dvar(background, white.obs, b_cov, white.variance, white.observe,
                                   1 if operator.linear else iterations)
-        return {"innovation": white.obs - white.observe(background), "cost_at_background": cost(background),
+        return {"background_covariance": b_cov, "innovation": white.obs - white.observe(background),
+                "cost_at_background": cost(background),
                 "gradient_at_background": jax.grad(cost)(background), "gain": gain,
                 "cost_at_analysis": cost(path[-1]), "analysis_ensemble": path[-1][None, :]}
 
