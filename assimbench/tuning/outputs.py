@@ -20,16 +20,13 @@ import matplotlib
 import matplotlib.ticker
 import matplotlib.transforms
 import numpy as np
-import yaml
 from matplotlib.figure import Figure
-from omegaconf import OmegaConf
 
 from assimbench.io.atomic import write_text
+from assimbench.io.experiment_file import experiment_file
 from assimbench.report.figures import OKABE_ITO, STATE_UNITS, STYLE, colours, save_png
 from assimbench.report.tables import to_csv, to_markdown
 from assimbench.report.words import filter_word, metric_word, setting_word, value_text
-
-GROUPS = ("model", "forecast_model", "filter")
 
 
 def record(point, key: str, objective: str, tuned: dict) -> dict:
@@ -116,20 +113,10 @@ def write_tables(folder: str, records: list) -> list:
 
 
 def tuned_config(point, best: dict) -> str:
-    """The tuned point as an experiment file of the main command: the package's config, the point's
-    components, then every value of its config with the tuned settings in."""
-    cfg = OmegaConf.to_container(point.config, resolve=True)
-    cfg.pop("lanes", None)
-    for key, value in best.items():
-        node = cfg
-        *parents, leaf = key.split(".")
-        for part in parents:
-            node = node[part]
-        node[leaf] = float(value)
-    defaults = ["config"] + [{f"override {group}": cfg[group]["name"]} for group in GROUPS] + ["_self_"]
+    """The tuned point as an experiment file of the main command (:func:`experiment_file`)."""
     head = (f"# Tuned by assimbench-tune: {', '.join(f'{k}={value_text(float(v))}' for k, v in best.items())}.\n"
             "# Run it with: assimbench --config-path <this folder> --config-name <this file's name>\n")
-    return head + yaml.safe_dump({"defaults": defaults, **cfg}, sort_keys=False)
+    return experiment_file(point.config, best, head)
 
 
 def write_config(folder: str, point, best: dict) -> str:

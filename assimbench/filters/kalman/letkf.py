@@ -31,6 +31,7 @@ local transforms serves every parameter.
 
 from dataclasses import dataclass
 
+import jax
 import jax.numpy as jnp
 import numpy as np
 from jax.scipy.linalg import solve_triangular
@@ -52,7 +53,7 @@ from assimbench.filters.kalman.inflation import (
     inflation_pieces,
     steps_with_inflation,
 )
-from assimbench.filters.kalman.precision_solvers import check_transform_solver, solve_precision
+from assimbench.filters.kalman.precision_solvers import check_transform_solver, solve_precision, spectral_apply
 from assimbench.localization import gaspari_cohn, radius_of, radius_setting, ring_distance, with_radius_check
 from assimbench.observations.operators import decoupled
 
@@ -128,10 +129,10 @@ def letkf_analysis(members, obs_members, y, error_var, local_index, local_weight
     precision, rhs = local_systems(space, y, error_var, local_index, local_weight, local_cov)
     column = anomalies.T  # (n, N): the anomalies of each grid point
     if solver == "eigh":
-        evals, evecs = jnp.linalg.eigh(precision)  # batched over grid points
-        weights_mean = jnp.einsum("gij,gj->gi", evecs, jnp.einsum("gji,gj->gi", evecs, rhs) / evals)
-        rotated = jnp.einsum("gji,gj->gi", evecs, column) / jnp.sqrt(evals)
-        transformed = jnp.sqrt(n_members - 1.0) * jnp.einsum("gij,gj->gi", evecs, rotated)  # W_g X[:, g]
+        evals, evecs = jax.lax.stop_gradient(jnp.linalg.eigh(precision))  # batched over grid points
+        # A_g^-1 rhs_g and A_g^(-1/2) X[:, g] without forming either; differentiable where eigenvalues repeat
+        weights_mean, rooted = spectral_apply(precision, evecs, evals, rhs, column)
+        transformed = jnp.sqrt(n_members - 1.0) * rooted  # W_g X[:, g]
     else:
         solved = solve_precision(precision, n_members - 1.0, solver)
         weights_mean = solved.apply_inverse(rhs)

@@ -30,7 +30,8 @@ Y sum to zero over members (Hunt, Kostelich & Szunyogh 2007, Physica D 230).
 Both give the same matrices to round-off; ``eigh`` stays for verification
 (``filter.transform_solver``). The Newton-Schulz loop is a ``while_loop`` (its
 count depends on the data), which reverse-mode differentiation does not go
-through: gradients through the cycle need ``eigh``.
+through: gradients through the cycle need ``eigh``, whose derivative is that of
+the matrix functions (:func:`spectral_functions`), exact where eigenvalues repeat.
 """
 
 from typing import Callable, NamedTuple
@@ -53,26 +54,107 @@ class Solved(NamedTuple):
     size: int
 
 
+def _spectral_products(evecs, evals, v, factor):
+    """(A^-1 v, factor A^(-1/2), A^-1) from A = V diag(evals) V^T; one matrix is written with the same
+    products as the package always used, so its results stay bit for bit what they were."""
+    if evecs.ndim == 2:
+        return (evecs @ ((evecs.T @ v) / evals), factor * (evecs / jnp.sqrt(evals)) @ evecs.T,
+                (evecs / evals) @ evecs.T)
+    applied = jnp.einsum("...ij,...j->...i", evecs, jnp.einsum("...ji,...j->...i", evecs, v) / evals)
+    root = jnp.einsum("...ij,...kj->...ik", factor * evecs / jnp.sqrt(evals)[..., None, :], evecs)
+    inverse = jnp.einsum("...ij,...kj->...ik", evecs / evals[..., None, :], evecs)
+    return applied, root, inverse
+
+
+def _in_eigenbasis(evecs, tangent):
+    """V^T E V for a symmetric tangent E (..., N, N)."""
+    return jnp.einsum("...ji,...jk,...kl->...il", evecs, tangent, evecs)
+
+
+def _from_eigenbasis(evecs, inner):
+    """V M V^T (..., N, N)."""
+    return jnp.einsum("...ij,...jk,...lk->...il", evecs, inner, evecs)
+
+
+@jax.custom_jvp
+def spectral_functions(matrix, evecs, evals, v, factor):
+    """(A^-1 v, factor A^(-1/2), A^-1) of symmetric positive definite ``matrix`` A (..., N, N), given its
+    eigen-decomposition (``evecs``, ``evals``, which carry no derivative of their own: pass them
+    through ``lax.stop_gradient``), for v (..., N) and a scalar ``factor``.
+
+    The derivative is that of the matrix functions, not of the eigenvectors: with E = V^T dA V,
+
+        d(A^-1) = -A^-1 dA A^-1,
+        d(A^(-1/2)) = V (F o E) V^T,  F_ij = -1 / (s_i s_j (s_i + s_j)),  s = evals^(1/2),
+
+    the Daleckii-Krein formula with the divided difference of lambda^(-1/2) in a form without the
+    eigenvalue gap (Higham 2008, Functions of Matrices, SIAM, Thm. 3.11; from memory). It stays exact
+    where eigenvalues repeat, which they do in the ensemble space: A = (N - 1) I + G has the eigenvalue
+    N - 1 once for every direction G does not see (more members than observations in a local
+    analysis). Differentiating the eigenvectors instead divides by the gaps, which are round-off
+    there, and gives wrong or non-finite gradients."""
+    return _spectral_products(evecs, evals, v, factor)
+
+
+@spectral_functions.defjvp
+def _spectral_functions_jvp(primals, tangents):
+    matrix, evecs, evals, v, factor = primals
+    d_matrix, _, _, d_v, d_factor = tangents
+    applied, root, inverse = _spectral_products(evecs, evals, v, factor)
+    d_matrix = 0.5 * (d_matrix + jnp.swapaxes(d_matrix, -1, -2))
+    d_inverse = -inverse @ d_matrix @ inverse
+    d_applied = jnp.einsum("...ij,...j->...i", d_inverse, v) + jnp.einsum("...ij,...j->...i", inverse, d_v)
+    roots = jnp.sqrt(evals)
+    divided = -1.0 / (roots[..., :, None] * roots[..., None, :] * (roots[..., :, None] + roots[..., None, :]))
+    unit_root = _from_eigenbasis(evecs, jnp.eye(evals.shape[-1]) / roots[..., None, :])
+    d_root = factor * _from_eigenbasis(evecs, divided * _in_eigenbasis(evecs, d_matrix)) + d_factor * unit_root
+    return (applied, root, inverse), (d_applied, d_root, d_inverse)
+
+
+@jax.custom_jvp
+def spectral_apply(matrix, evecs, evals, v, u):
+    """(A^-1 v, A^(-1/2) u) for a batch of symmetric positive definite ``matrix`` (g, N, N) with its
+    eigen-decomposition (``evecs``, ``evals``, through ``lax.stop_gradient``) and v, u (g, N), without
+    forming the matrices; the derivative is that of the matrix functions (:func:`spectral_functions`)."""
+    applied = jnp.einsum("gij,gj->gi", evecs, jnp.einsum("gji,gj->gi", evecs, v) / evals)
+    rotated = jnp.einsum("gji,gj->gi", evecs, u) / jnp.sqrt(evals)
+    return applied, jnp.einsum("gij,gj->gi", evecs, rotated)
+
+
+@spectral_apply.defjvp
+def _spectral_apply_jvp(primals, tangents):
+    matrix, evecs, evals, v, u = primals
+    d_matrix, _, _, d_v, d_u = tangents
+    applied, rooted = spectral_apply(matrix, evecs, evals, v, u)
+    d_matrix = 0.5 * (d_matrix + jnp.swapaxes(d_matrix, -1, -2))
+    inverse = _from_eigenbasis(evecs, jnp.eye(evals.shape[-1]) / evals[..., None, :])
+    root = _from_eigenbasis(evecs, jnp.eye(evals.shape[-1]) / jnp.sqrt(evals)[..., None, :])
+    d_applied = (-jnp.einsum("gij,gj->gi", inverse, jnp.einsum("gij,gj->gi", d_matrix, applied))
+                 + jnp.einsum("gij,gj->gi", inverse, d_v))
+    roots = jnp.sqrt(evals)
+    divided = -1.0 / (roots[..., :, None] * roots[..., None, :] * (roots[..., :, None] + roots[..., None, :]))
+    d_root = _from_eigenbasis(evecs, divided * _in_eigenbasis(evecs, d_matrix))
+    d_rooted = jnp.einsum("gij,gj->gi", d_root, u) + jnp.einsum("gij,gj->gi", root, d_u)
+    return (applied, rooted), (d_applied, d_rooted)
+
+
 def solve_eigh(matrix: jax.Array) -> Solved:
-    """A^-1 and A^(-1/2) of symmetric positive definite ``matrix`` (..., N, N) by eigen-decomposition.
-    One matrix is written with the same products as the package always used, so its results stay
-    bit for bit what they were."""
-    evals, evecs = jnp.linalg.eigh(matrix)
-    if matrix.ndim == 2:
-        return Solved(lambda v: evecs @ ((evecs.T @ v) / evals),
-                      lambda factor=1.0: factor * (evecs / jnp.sqrt(evals)) @ evecs.T,
-                      lambda: (evecs / evals) @ evecs.T, matrix.shape[-1])
+    """A^-1 and A^(-1/2) of symmetric positive definite ``matrix`` (..., N, N) by eigen-decomposition;
+    differentiable with repeated eigenvalues (:func:`spectral_functions`)."""
+    evals, evecs = jax.lax.stop_gradient(jnp.linalg.eigh(matrix))
+    size = matrix.shape[-1]
+    zero_v = jnp.zeros(matrix.shape[:-1], matrix.dtype)
 
     def apply_inverse(v):
-        return jnp.einsum("...ij,...j->...i", evecs, jnp.einsum("...ji,...j->...i", evecs, v) / evals)
-
-    def inverse():
-        return jnp.einsum("...ij,...kj->...ik", evecs / evals[..., None, :], evecs)
+        return spectral_functions(matrix, evecs, evals, v, jnp.asarray(1.0, matrix.dtype))[0]
 
     def inverse_root(factor=1.0):
-        return jnp.einsum("...ij,...kj->...ik", factor * evecs / jnp.sqrt(evals)[..., None, :], evecs)
+        return spectral_functions(matrix, evecs, evals, zero_v, jnp.asarray(factor, matrix.dtype))[1]
 
-    return Solved(apply_inverse, inverse_root, inverse, matrix.shape[-1])
+    def inverse():
+        return spectral_functions(matrix, evecs, evals, zero_v, jnp.asarray(1.0, matrix.dtype))[2]
+
+    return Solved(apply_inverse, inverse_root, inverse, size)
 
 
 def newton_schulz_inverse_root(matrix: jax.Array, floor) -> tuple:

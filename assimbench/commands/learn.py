@@ -1,0 +1,185 @@
+"""Console script ``assimbench-learn``: settings and forecast-model parameters learned by gradients
+through the cycle.
+
+    assimbench-learn forecast_model=lorenz96 forecast_model.forcing=7 \\
+        'learn.parameters=[forecast_model.forcing]' cycles=1500 burn_in=100 replicates=2 study=studies/forcing
+
+Takes the main command's overrides (or ``--config-path DIR --config-name NAME``) and the study's keys
+(:mod:`assimbench.learning.study`). ``learn.mode=fit`` steps the learned quantities down the gradient
+of the chosen objective, one line per step, and writes ``learned.yaml`` (a ready-to-run experiment),
+``learning.csv`` and ``learning_curve.png`` into the study folder; ``learn.mode=windows`` measures the
+gradient over windows of several lengths, to choose the window. Exit status: 0 done; 1 a fit stopped on
+a non-finite objective or gradient (named; the history and curve are written, no learned.yaml); 2 bad
+input, one line on stderr, nothing written.
+"""
+
+import os
+import sys
+import time
+
+import jax
+import numpy as np
+from omegaconf import OmegaConf
+
+from assimbench.commands._hydra import compose_jobs, fail, prepare_hydra, user_config_arguments
+from assimbench.compile_cache import switch_on as switch_on_compile_cache
+from assimbench.config.checks import ConfigError
+from assimbench.io.atomic import unwritable
+from assimbench.learning.learnables import free_values
+from assimbench.learning.loop import fit, summarise
+from assimbench.learning.outputs import OBJECTIVE_WORDS, write_fit, write_windows
+from assimbench.learning.study import check_experiment, split_arguments, study_folder
+from assimbench.learning.windows import make_gradient_pass, make_twin_data
+from assimbench.report.words import setting_word, value_text
+from assimbench.twin.cycling import replicate_keys
+
+COMMAND = "assimbench-learn"
+USAGE = (__doc__.split("\n\n")[0] + "\n\n" + __doc__.split("\n\n")[1] + """
+
+The study's own keys (defaults in brackets):
+  learn.parameters=[key,...]       what to learn: traced filter settings (filter.inflation,
+                                   filter.radius, ...), assumed errors (assumed.error_std) or
+                                   forecast-model parameters (forecast_model.forcing); each starts
+                                   from its configured value
+  learn.objective=innovation|truth [innovation]  observations only, or the analysis RMSE
+  learn.window=K [10]              cycles per window of the gradient
+  learn.iterations=N [40]          optimizer steps
+  learn.rate=F [0.1]               step size on the unconstrained values (cosine decay)
+  learn.optimizer=adam|sgd [adam]
+  learn.nonfinite=stop|skip [stop] a window whose gradient is not finite: stop, or leave it out
+  learn.mode=fit|windows [fit]     learn, or measure the gradient against the window length
+  learn.windows=[1,2,5,10,20,40]   the window lengths of learn.mode=windows
+  study=PATH [learning]            the folder of the study's files""").replace("``", "")
+
+
+def prepare(argv: list) -> tuple:
+    """(cfg, plan, learnables, options, folder): everything checked before anything runs."""
+    rest, options = split_arguments(argv)
+    _, jobs = compose_jobs(user_config_arguments(rest, "config"))
+    if len(jobs) != 1:
+        raise ConfigError("a learning study is one experiment: give one value per key (no comma lists)")
+    cfg = jobs[0]
+    plan, learnables = check_experiment(cfg, options)
+    folder = study_folder(options)
+    problem = unwritable(folder)
+    if problem:
+        raise ConfigError(f"{problem}; choose another study=")
+    return cfg, plan, learnables, options, folder
+
+
+def compiled_pass(plan, learnables, options, window: int, data, free):
+    """The gradient pass of ``window`` cycles, compiled; ConfigError when the filter cannot be
+    differentiated (a loop whose length depends on the data, a non-differentiable operation)."""
+    windows = (plan.cycles - plan.burn_in) // window
+    program = make_gradient_pass(plan.setup, learnables, options.objective, window, windows, plan.burn_in)
+    try:
+        program.lower(free, data, plan.settings).compile()
+    except Exception as err:  # noqa: BLE001 - JAX reports a non-differentiable step by several types
+        first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
+        raise ConfigError(f"filter={plan.choice.filter.name} cannot be differentiated through the cycle: {first}") from None
+    return program, windows
+
+
+def _values_text(learnables, values) -> str:
+    return ", ".join(f"{setting_word(item.key)} {v:.5g}" for item, v in zip(learnables, values))
+
+
+def step_line(learnables, total: int):
+    def report(step):
+        head = f"step {step.iteration:>3}/{total}"
+        if step.used == 0 or not np.isfinite(step.objective):
+            where = (f"; first in replicate {step.first_nonfinite[0]}, window {step.first_nonfinite[1]}"
+                     if step.first_nonfinite else "")
+            print(f"{head}: NON-FINITE objective or gradient in {step.nonfinite} window"
+                  f"{'s' if step.nonfinite != 1 else ''}{where}; at {_values_text(learnables, step.values)}",
+                  flush=True)
+            return
+        gradients = ", ".join(f"{g:+.3g} +- {e:.2g}" for g, e in zip(step.gradient, step.gradient_error))
+        skipped = f"; {step.nonfinite} non-finite windows left out" if step.nonfinite else ""
+        print(f"{head}: objective {step.objective:.5f}; {_values_text(learnables, step.values)}; "
+              f"gradient {gradients}{skipped} ({step.seconds:.2f} s)", flush=True)
+
+    return report
+
+
+def run_fit(cfg, plan, learnables, options, folder, data) -> int:
+    start = [float(OmegaConf.select(cfg, item.key)) for item in learnables]
+    free = free_values(learnables, start)
+    program, windows = compiled_pass(plan, learnables, options, options.window, data, free)
+    print(f"{COMMAND}: {plan.title}")
+    print(f"  learning {', '.join(item.key for item in learnables)} from {_values_text(learnables, start)}; "
+          f"objective: {OBJECTIVE_WORDS[options.objective]}"
+          + (" (observations only)" if options.objective == "innovation" else " (needs the truth)"))
+    print(f"  {windows} windows of {options.window} cycles x {plan.replicates} replicate"
+          f"{'s' if plan.replicates > 1 else ''} after {plan.burn_in} burn-in cycles; {options.optimizer}, rate "
+          f"{options.rate:g}, {options.iterations} steps; unconstrained: "
+          + ", ".join(f"{setting_word(i.key)} {i.described}" for i in learnables), flush=True)
+    free, history = fit(program, free, data, plan.settings, learnables, options,
+                        report=step_line(learnables, options.iterations))
+    finished = history.stopped is None
+    written = write_fit(folder, cfg, learnables, history, options.objective, finished)
+    last = history.steps[-1]
+    if finished:
+        print("learned (the gradient at the learned values, +- its standard error over windows):")
+        for j, item in enumerate(learnables):
+            gradient, error = last.gradient[j], last.gradient_error[j]
+            settled = "settled" if abs(gradient) <= 2 * error else "still sloped: more steps or a larger rate"
+            print(f"  {item.key}={value_text(float(last.values[j]))}  (gradient {gradient:+.3g} +- {error:.2g}: "
+                  f"{settled})")
+    else:
+        good = [s for s in history.steps if np.isfinite(s.objective) and s.nonfinite == 0]
+        print(f"{COMMAND}: stopped at {history.stopped}; no learned.yaml written"
+              + (f"; the last finite step ran at {_values_text(learnables, good[-1].values)}" if good else "")
+              + "; learn.nonfinite=skip leaves such windows out (counted), a smaller learn.rate or learn.window "
+              "keeps the filter from diverging", file=sys.stderr)
+    print(f"study: {folder}  ({', '.join(os.path.basename(p) for p in written)})")
+    return 0 if finished else 1
+
+
+def run_windows(cfg, plan, learnables, options, folder, data) -> int:
+    start = [float(OmegaConf.select(cfg, item.key)) for item in learnables]
+    free = free_values(learnables, start)
+    print(f"{COMMAND}: {plan.title}")
+    print(f"  the gradient of the {OBJECTIVE_WORDS[options.objective]} at {_values_text(learnables, start)}, "
+          f"per window length (spread: the std of one window's gradient over windows and replicates)", flush=True)
+    measured = []
+    for window in options.windows:
+        program, windows = compiled_pass(plan, learnables, options, window, data, free)
+        started = time.perf_counter()
+        losses, grads = jax.block_until_ready(program(free, data, plan.settings))
+        seconds = time.perf_counter() - started
+        step, _ = summarise(0, learnables, free, losses, grads, seconds, keep_finite=True)
+        finite = np.isfinite(np.asarray(losses)) & np.all(np.isfinite(np.asarray(grads)), axis=-1)
+        spread = step.gradient_error * np.sqrt(max(step.used, 1))
+        measured.append({"window": window, "windows": windows, "seconds": seconds, "objective": step.objective,
+                         "mean": step.gradient, "error": step.gradient_error, "spread": spread,
+                         "nonfinite": int((~finite).sum())})
+        parts = ", ".join(f"{setting_word(i.key)} {g:+.3g} +- {e:.2g} (spread {s:.3g})"
+                          for i, g, e, s in zip(learnables, step.gradient, step.gradient_error, spread))
+        bad = f"; {int((~finite).sum())} non-finite windows left out" if (~finite).any() else ""
+        print(f"  window {window:>4} cycles ({windows} x {plan.replicates}): {parts}{bad} ({seconds:.2f} s)",
+              flush=True)
+    written = write_windows(folder, learnables, measured, options.objective)
+    print(f"study: {folder}  ({', '.join(os.path.basename(p) for p in written)})")
+    return 0
+
+
+def main(argv=None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    if any(a in ("-h", "--help") for a in argv):
+        print(USAGE)
+        return 0
+    prepare_hydra()
+    try:
+        cfg, plan, learnables, options, folder = prepare(argv)
+        switch_on_compile_cache()
+        data = make_twin_data(plan.setup, plan.settings, replicate_keys(plan.seed, plan.replicates), plan.cycles)
+        if options.mode == "windows":
+            return run_windows(cfg, plan, learnables, options, folder, data)
+        return run_fit(cfg, plan, learnables, options, folder, data)
+    except ConfigError as err:
+        return fail(COMMAND, str(err))
+
+
+if __name__ == "__main__":
+    sys.exit(main())

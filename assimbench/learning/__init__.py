@@ -1,0 +1,1 @@
+"""Settings and forecast-model parameters learned by gradients through the cycle."""

@@ -1,0 +1,106 @@
+"""The learning loop: gradient steps on the unconstrained values, one gradient pass per step.
+
+Each iteration runs one gradient pass (:func:`assimbench.learning.windows.make_gradient_pass`) over
+the whole twin at the current values: the objective is the mean window objective over replicates and
+windows, the gradient the mean window gradient, and its standard error the windows' spread over the
+square root of their number (windows treated as independent: an estimate of the noise, not a bound).
+The optimizer is Optax's (Adam by default: its steps are of the rate's size in every unconstrained
+coordinate whatever the gradient's scale, which differs by orders of magnitude between an
+inflation and a forcing; Kingma & Ba 2015, ICLR), with the rate decaying along a cosine to 2% of
+itself so that the last steps settle. Every pass is the same compiled program: values are traced.
+"""
+
+import time
+from dataclasses import dataclass, field
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+import optax
+
+from assimbench.learning.learnables import values_of
+
+
+@dataclass
+class Step:
+    """One gradient pass: the values it ran at, the objective's mean over the windows used, the mean
+    gradient with respect to each value (dJ/dvalue) and its standard error, the windows used and not
+    finite, and the first non-finite window (replicate, window) or None."""
+
+    iteration: int
+    values: np.ndarray
+    objective: float
+    gradient: np.ndarray
+    gradient_error: np.ndarray
+    used: int
+    nonfinite: int
+    first_nonfinite: tuple | None
+    seconds: float
+
+
+@dataclass
+class History:
+    """Every step of a fit, and how it ended: ``finished`` (all iterations), or ``stopped`` with why."""
+
+    steps: list = field(default_factory=list)
+    stopped: str | None = None
+
+
+def value_slopes(learnables: tuple, free: np.ndarray) -> np.ndarray:
+    """(q,) d value / d u at ``free``: the chain rule from the unconstrained gradient to the value's."""
+    return np.array([float(jax.grad(item.from_free)(jnp.asarray(free[j], jnp.float64)))
+                     for j, item in enumerate(learnables)])
+
+
+def summarise(iteration: int, learnables: tuple, free, losses, grads, seconds: float, keep_finite: bool) -> tuple:
+    """(Step, mean unconstrained gradient or None) of one pass's (R, W) losses and (R, W, q) gradients.
+    With ``keep_finite`` the non-finite windows are left out of the means; otherwise a non-finite
+    window makes the gradient None."""
+    losses, grads = np.asarray(losses), np.asarray(grads)
+    finite = np.isfinite(losses) & np.all(np.isfinite(grads), axis=-1)
+    bad = np.argwhere(~finite)
+    first = tuple(int(i) for i in bad[0]) if bad.size else None
+    used = int(finite.sum())
+    free = np.asarray(free)
+    slopes = value_slopes(learnables, free)
+    if used == 0 or (bad.size and not keep_finite):
+        nan = np.full(len(learnables), np.nan)
+        step = Step(iteration, values_of(learnables, free), float("nan"), nan, nan, used, int(bad.shape[0]), first,
+                    seconds)
+        return step, None
+    kept = grads[finite]  # (used, q), unconstrained
+    mean_free = kept.mean(axis=0)
+    error_free = kept.std(axis=0, ddof=1) / np.sqrt(used) if used > 1 else np.full(len(learnables), np.nan)
+    step = Step(iteration, values_of(learnables, free), float(losses[finite].mean()), mean_free / slopes,
+                error_free / np.abs(slopes), used, int(bad.shape[0]), first, seconds)
+    return step, mean_free
+
+
+def optimizer_of(name: str, rate: float, iterations: int):
+    schedule = optax.cosine_decay_schedule(rate, max(iterations, 1), alpha=0.02)
+    return optax.adam(schedule) if name == "adam" else optax.sgd(schedule)
+
+
+def fit(gradient_pass, free, data, settings, learnables: tuple, options, report=lambda step: None) -> tuple:
+    """(final unconstrained values, History): ``options.iterations`` optimizer steps from ``free``, then
+    one more pass at the final values (the last Step: what the written values give). ``report(step)``
+    after every pass."""
+    optimizer = optimizer_of(options.optimizer, options.rate, options.iterations)
+    state = optimizer.init(free)
+    history = History()
+    keep_finite = options.nonfinite == "skip"
+    for iteration in range(options.iterations + 1):
+        started = time.perf_counter()
+        losses, grads = jax.block_until_ready(gradient_pass(free, data, settings))
+        step, mean = summarise(iteration, learnables, free, losses, grads, time.perf_counter() - started, keep_finite)
+        history.steps.append(step)
+        report(step)
+        if mean is None:
+            history.stopped = (f"iteration {iteration}: {step.nonfinite} window"
+                               f"{'s' if step.nonfinite != 1 else ''} with a non-finite objective or gradient")
+            break
+        if iteration == options.iterations:
+            break
+        updates, state = optimizer.update(jnp.asarray(mean), state, free)
+        free = optax.apply_updates(free, updates)
+    return free, history
