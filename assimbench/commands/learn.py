@@ -44,7 +44,7 @@ The study's own keys (defaults in brackets):
   learn.objective=innovation|truth [innovation]  observations only, or the analysis RMSE
   learn.window=K [10]              cycles per window of the gradient
   learn.iterations=N [40]          optimizer steps
-  learn.rate=F [0.1]               step size on the unconstrained values (cosine decay)
+  learn.rate=F [0.2]               step size on the unconstrained values (cosine decay)
   learn.optimizer=adam|sgd [adam]
   learn.nonfinite=stop|skip [stop] a window whose gradient is not finite: stop, or leave it out
   learn.mode=fit|windows [fit]     learn, or measure the gradient against the window length

@@ -9,7 +9,7 @@ the study's own keys (defaults in brackets):
   log-likelihood (observations only) or the analysis RMSE against the truth
   (:mod:`.objectives`);
 - ``learn.window=K`` [10]: cycles per window (:mod:`.windows`);
-- ``learn.iterations=N`` [40], ``learn.rate=F`` [0.1], ``learn.optimizer=adam|sgd``
+- ``learn.iterations=N`` [40], ``learn.rate=F`` [0.2], ``learn.optimizer=adam|sgd``
   [adam]: the optimizer's steps on the unconstrained values (the rate decays
   along a cosine to 2% of itself by the last step);
 - ``learn.nonfinite=stop|skip`` [stop]: on a window whose objective or gradient
@@ -40,7 +40,7 @@ from assimbench.learning.objectives import OBJECTIVES
 OPTIMIZERS = ("adam", "sgd")
 MODES = ("fit", "windows")
 NONFINITE = ("stop", "skip")
-DEFAULTS = {"parameters": None, "objective": "innovation", "window": 10, "iterations": 40, "rate": 0.1,
+DEFAULTS = {"parameters": None, "objective": "innovation", "window": 10, "iterations": 40, "rate": 0.2,
             "optimizer": "adam", "nonfinite": "stop", "mode": "fit", "windows": (1, 2, 5, 10, 20, 40)}
 
 
