@@ -7,14 +7,23 @@ A card is a YAML file (see ``experiments/published/``) with keys
 naming another card (or a list of cards) whose measured metric this one must
 beat / trail, and
 ``tuned`` (setting -> [low, high]): where tuning that setting should land.
+
+A card with ``learn`` (the keys of ``assimbench-learn`` without their ``learn.`` prefix, e.g.
+``{parameters: [forecast_model.forcing], iterations: 40}``) is a learning study: its metric is a
+learned key, and its measure the value learned by gradients through the cycle
+(:mod:`assimbench.learning`).
 """
 
+import math
 import os
 from dataclasses import dataclass
 
 import yaml
 
 from assimbench.api import run
+from assimbench.config.composition import compose_config
+from assimbench.learning.loop import learn
+from assimbench.learning.study import DEFAULTS, LearnOptions, check_experiment
 
 
 @dataclass
@@ -28,6 +37,7 @@ class Card:
     better_than: tuple = ()
     worse_than: tuple = ()
     tuned: dict | None = None
+    learn: dict | None = None
 
 
 def _names(value) -> tuple:
@@ -55,6 +65,7 @@ def load_cards(folder: str) -> dict:
                 better_than=_names(raw.get("better_than")),
                 worse_than=_names(raw.get("worse_than")),
                 tuned=raw.get("tuned"),
+                learn=raw.get("learn"),
             )
     return cards
 
@@ -67,7 +78,22 @@ def measure(card: Card, length: str = "short") -> float:
         f"burn_in={spec['burn_in']}",
         f"replicates={spec['replicates']}",
     ]
+    if card.learn is not None:
+        return learned_value(card, overrides)
     return run(overrides).summary[card.metric]
+
+
+def learned_value(card: Card, overrides: list) -> float:
+    """The value of ``card.metric`` (a learned key) that a learning study of the card learns; NaN when
+    the fit stopped on a non-finite gradient."""
+    options = LearnOptions(**(DEFAULTS | {k: tuple(v) if isinstance(v, list) else v for k, v in card.learn.items()}),
+                           study="unused")
+    cfg = compose_config(overrides)
+    plan, learnables = check_experiment(cfg, options)
+    _, history = learn(cfg, plan, learnables, options)
+    if history.stopped is not None:
+        return math.nan
+    return float(history.steps[-1].values[[item.key for item in learnables].index(card.metric)])
 
 
 def verdicts(cards: dict, measured: dict, length: str = "short") -> dict:

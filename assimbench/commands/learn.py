@@ -25,8 +25,9 @@ from assimbench.commands._hydra import compose_jobs, fail, prepare_hydra, user_c
 from assimbench.compile_cache import switch_on as switch_on_compile_cache
 from assimbench.config.checks import ConfigError
 from assimbench.io.atomic import unwritable
+from assimbench.learning.checks import check_runs
 from assimbench.learning.learnables import free_values
-from assimbench.learning.loop import fit, summarise
+from assimbench.learning.loop import learn, summarise
 from assimbench.learning.outputs import OBJECTIVE_WORDS, write_fit, write_windows
 from assimbench.learning.study import check_experiment, split_arguments, study_folder
 from assimbench.learning.windows import make_gradient_pass, make_twin_data
@@ -67,17 +68,14 @@ def prepare(argv: list) -> tuple:
     return cfg, plan, learnables, options, folder
 
 
-def compiled_pass(plan, learnables, options, window: int, data, free):
-    """The gradient pass of ``window`` cycles, compiled; ConfigError when the filter cannot be
-    differentiated (a loop whose length depends on the data, a non-differentiable operation)."""
-    windows = (plan.cycles - plan.burn_in) // window
-    program = make_gradient_pass(plan.setup, learnables, options.objective, window, windows, plan.burn_in)
+def check_compiles(plan, program, free, data) -> None:
+    """Compile ``program``; ConfigError when the filter cannot be differentiated (a loop whose length
+    depends on the data, a non-differentiable operation)."""
     try:
         program.lower(free, data, plan.settings).compile()
     except Exception as err:  # noqa: BLE001 - JAX reports a non-differentiable step by several types
         first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
         raise ConfigError(f"filter={plan.choice.filter.name} cannot be differentiated through the cycle: {first}") from None
-    return program, windows
 
 
 def _values_text(learnables, values) -> str:
@@ -102,10 +100,9 @@ def step_line(learnables, total: int):
     return report
 
 
-def run_fit(cfg, plan, learnables, options, folder, data) -> int:
+def run_fit(cfg, plan, learnables, options, folder) -> int:
     start = [float(OmegaConf.select(cfg, item.key)) for item in learnables]
-    free = free_values(learnables, start)
-    program, windows = compiled_pass(plan, learnables, options, options.window, data, free)
+    windows = (plan.cycles - plan.burn_in) // options.window
     print(f"{COMMAND}: {plan.title}")
     print(f"  learning {', '.join(item.key for item in learnables)} from {_values_text(learnables, start)}; "
           f"objective: {OBJECTIVE_WORDS[options.objective]}"
@@ -114,11 +111,11 @@ def run_fit(cfg, plan, learnables, options, folder, data) -> int:
           f"{'s' if plan.replicates > 1 else ''} after {plan.burn_in} burn-in cycles; {options.optimizer}, rate "
           f"{options.rate:g}, {options.iterations} steps; unconstrained: "
           + ", ".join(f"{setting_word(i.key)} {i.described}" for i in learnables), flush=True)
-    free, history = fit(program, free, data, plan.settings, learnables, options,
-                        report=step_line(learnables, options.iterations))
+    _, history = learn(cfg, plan, learnables, options, report=step_line(learnables, options.iterations),
+                       compiled=lambda program, free, data: check_compiles(plan, program, free, data))
     finished = history.stopped is None
-    written = write_fit(folder, cfg, learnables, history, options.objective, finished)
     last = history.steps[-1]
+    checks = None
     if finished:
         print("learned (the gradient at the learned values, +- its standard error over windows):")
         for j, item in enumerate(learnables):
@@ -126,7 +123,10 @@ def run_fit(cfg, plan, learnables, options, folder, data) -> int:
             settled = "settled" if abs(gradient) <= 2 * error else "still sloped: more steps or a larger rate"
             print(f"  {item.key}={value_text(float(last.values[j]))}  (gradient {gradient:+.3g} +- {error:.2g}: "
                   f"{settled})")
-    else:
+        checks = check_runs(cfg, [item.key for item in learnables], start, last.values)
+        print_checks(learnables, checks)
+    written = write_fit(folder, cfg, learnables, history, options.objective, finished, checks)
+    if not finished:
         good = [s for s in history.steps if np.isfinite(s.objective) and s.nonfinite == 0]
         print(f"{COMMAND}: stopped at {history.stopped}; no learned.yaml written"
               + (f"; the last finite step ran at {_values_text(learnables, good[-1].values)}" if good else "")
@@ -136,15 +136,32 @@ def run_fit(cfg, plan, learnables, options, folder, data) -> int:
     return 0 if finished else 1
 
 
-def run_windows(cfg, plan, learnables, options, folder, data) -> int:
+def print_checks(learnables, checks: list) -> None:
+    print("check runs (the main command at these values; analysis RMSE with its 95% interval):")
+    for row in checks:
+        values = _values_text(learnables, [row[item.key] for item in learnables])
+        lost = f"{row['lost']} of {row['replicates']} replicates lost" + (" (LOST)" if row["lost"] else "")
+        print(f"  {row['check'] + ':':<22} {values}; seed {row['seed']}: analysis RMSE {row['rmse_analysis']:.4f} +- "
+              f"{(row['rmse_analysis_high'] - row['rmse_analysis_low']) / 2:.4f}, innovation ratio "
+              f"{row['innovation_ratio']:.3f}; {lost}")
+    if any(row["lost"] for row in checks[1:]):
+        print("  the learned values lose the truth in some replicate: the gradient settled at the edge of "
+              "divergence, which truncated windows see only where it happens; a safer value lies away from it "
+              "(assimbench-tune keeps every replicate)")
+
+
+def run_windows(cfg, plan, learnables, options, folder) -> int:
     start = [float(OmegaConf.select(cfg, item.key)) for item in learnables]
     free = free_values(learnables, start)
+    data = make_twin_data(plan.setup, plan.settings, replicate_keys(plan.seed, plan.replicates), plan.cycles)
     print(f"{COMMAND}: {plan.title}")
     print(f"  the gradient of the {OBJECTIVE_WORDS[options.objective]} at {_values_text(learnables, start)}, "
           f"per window length (spread: the std of one window's gradient over windows and replicates)", flush=True)
     measured = []
     for window in options.windows:
-        program, windows = compiled_pass(plan, learnables, options, window, data, free)
+        windows = (plan.cycles - plan.burn_in) // window
+        program = make_gradient_pass(plan.setup, learnables, options.objective, window, windows, plan.burn_in)
+        check_compiles(plan, program, free, data)
         started = time.perf_counter()
         losses, grads = jax.block_until_ready(program(free, data, plan.settings))
         seconds = time.perf_counter() - started
@@ -173,10 +190,9 @@ def main(argv=None) -> int:
     try:
         cfg, plan, learnables, options, folder = prepare(argv)
         switch_on_compile_cache()
-        data = make_twin_data(plan.setup, plan.settings, replicate_keys(plan.seed, plan.replicates), plan.cycles)
         if options.mode == "windows":
-            return run_windows(cfg, plan, learnables, options, folder, data)
-        return run_fit(cfg, plan, learnables, options, folder, data)
+            return run_windows(cfg, plan, learnables, options, folder)
+        return run_fit(cfg, plan, learnables, options, folder)
     except ConfigError as err:
         return fail(COMMAND, str(err))
 

@@ -7,7 +7,9 @@ fit (``learn.mode=fit``):
   gradient with respect to each value and its standard error, the windows
   used and left out as non-finite;
 - ``learning_curve.png``: the objective and every value against the
-  iteration.
+  iteration;
+- ``checks.csv``: the main command at the starting and the learned values
+  (:mod:`.checks`).
 
 windows (``learn.mode=windows``):
 - ``window_gradients.csv`` and ``window_gradients.png``: per window length,
@@ -17,6 +19,7 @@ windows (``learn.mode=windows``):
 import os
 
 import matplotlib
+import matplotlib.ticker
 import numpy as np
 from matplotlib.figure import Figure
 
@@ -54,18 +57,20 @@ def history_rows(learnables: tuple, history) -> tuple:
 
 
 def learning_curve(learnables: tuple, history, objective: str, path: str, reference: dict | None = None) -> str:
-    """The objective (top) and each learned value against the iteration; ``reference``: key -> value
-    drawn as a dashed line (e.g. the truth's own forcing)."""
+    """Left: the objective (top) and each learned value against the iteration; right: the gradient
+    with respect to each value with its 95% interval (a value has settled where the interval holds
+    0). ``reference``: key -> value drawn as a dashed line (e.g. the truth's own forcing)."""
     steps = history.steps
-    iterations = [s.iteration for s in steps]
+    iterations = np.array([s.iteration for s in steps])
     rows = 1 + len(learnables)
     with matplotlib.rc_context(STYLE):
-        fig = Figure(figsize=(6.4, 2.2 * rows))
-        axes = fig.subplots(rows, 1, squeeze=False, sharex=True)
+        fig = Figure(figsize=(10.0, 2.1 * rows + 0.4), layout="constrained")
+        axes = fig.subplots(rows, 2, squeeze=False, sharex=True)
         ax = axes[0, 0]
         ax.plot(iterations, [s.objective for s in steps], marker="o", ms=3, color=OKABE_ITO["blue"])
         ax.set_ylabel(OBJECTIVE_WORDS[objective].replace(" per observation", "\nper observation"))
-        ax.set_title("learning curve" + (f" (stopped: {history.stopped})" if history.stopped else ""))
+        ax.set_title("objective")
+        axes[0, 1].axis("off")
         for j, item in enumerate(learnables):
             ax = axes[1 + j, 0]
             ax.plot(iterations, [s.values[j] for s in steps], marker="o", ms=3, color=OKABE_ITO["vermillion"],
@@ -74,8 +79,23 @@ def learning_curve(learnables: tuple, history, objective: str, path: str, refere
                 ax.axhline(reference[item.key], color="black", ls="--", lw=1, label="reference")
                 ax.legend(loc="best", fontsize="small")
             ax.set_ylabel(setting_word(item.key))
-        axes[-1, 0].set_xlabel("iteration (one gradient pass over every window)")
-        fig.align_ylabels(axes[:, 0])
+            if j == 0:
+                ax.set_title("values")
+            ax = axes[1 + j, 1]
+            gradient = np.array([s.gradient[j] for s in steps])
+            error = np.array([s.gradient_error[j] for s in steps])
+            ax.fill_between(iterations, gradient - 1.96 * error, gradient + 1.96 * error, color=OKABE_ITO["sky blue"],
+                            alpha=0.4, lw=0, label="95% interval")
+            ax.plot(iterations, gradient, marker="o", ms=3, color=OKABE_ITO["blue"], label="mean over windows")
+            ax.axhline(0.0, color="black", lw=0.8)
+            ax.set_ylabel(f"d objective / d {setting_word(item.key)}")
+            if j == 0:
+                ax.set_title("gradient")
+                ax.legend(loc="best", fontsize="small")
+        for ax in axes[-1]:
+            ax.set_xlabel("step (one gradient pass over every window)")
+        if history.stopped:
+            fig.suptitle(f"stopped: {history.stopped}")
     return save_png(fig, path)
 
 
@@ -117,20 +137,37 @@ def window_figure(learnables: tuple, measured: list, objective: str, path: str) 
             bottom.errorbar(lengths, mean, yerr=1.96 * np.nan_to_num(error), marker="o", capsize=3,
                             color=OKABE_ITO["blue"])
             bottom.axhline(0.0, color="black", lw=0.8)
+            # Windows whose gradient has exploded would flatten the others: keep them off the scale, said.
+            calm = np.isfinite(spread) & (spread <= 10.0 * np.nanmin(spread))
+            if not calm.all() and calm.sum() >= 2:
+                low = np.min((mean - 1.96 * error)[calm])
+                high = np.max((mean + 1.96 * error)[calm])
+                margin = 0.15 * (high - low) if high > low else 1.0
+                bottom.set_ylim(min(low, 0.0) - margin, max(high, 0.0) + margin)
+                first = int(lengths[~calm].min())
+                bottom.text(0.02, 0.96, f"windows of {first} cycles and more: off the scale\n(spread over 10 x the "
+                            "shortest window's)", transform=bottom.transAxes, va="top", fontsize="small")
             if j == 0:
                 bottom.set_ylabel("mean gradient\n(95% interval)")
             bottom.set_xlabel("window (cycles)")
             set_log_axis(bottom, lengths, which="x")
+            # Decades only: the 1-2-5 steps crowd a narrow panel over three decades.
+            bottom.xaxis.set_major_locator(matplotlib.ticker.LogLocator(base=10.0, numticks=8))
+            bottom.xaxis.set_major_formatter(matplotlib.ticker.FuncFormatter(lambda t, _: f"{t:,.0f}"))
         fig.suptitle(f"gradient of the {OBJECTIVE_WORDS[objective]}\nper unit of each setting, against the window length")
     return save_png(fig, path)
 
 
 def write_fit(folder: str, config, learnables: tuple, history, objective: str, finished: bool,
-              reference: dict | None = None) -> list:
-    """The fit's files (module text); ``learned.yaml`` only when ``finished``."""
+              checks: list | None = None, reference: dict | None = None) -> list:
+    """The fit's files (module text); ``learned.yaml`` only when ``finished``; ``checks.csv`` with the
+    check runs when given (:mod:`.checks`)."""
     columns, rows = history_rows(learnables, history)
     written = [write_text(os.path.join(folder, "learning.csv"), to_csv(columns, rows)),
                learning_curve(learnables, history, objective, os.path.join(folder, "learning_curve.png"), reference)]
+    if checks:
+        columns = list(checks[0])
+        written.append(write_text(os.path.join(folder, "checks.csv"), to_csv(columns, checks)))
     if finished:
         values = history.steps[-1].values
         written.insert(0, write_text(os.path.join(folder, "learned.yaml"),
