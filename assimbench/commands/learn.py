@@ -82,6 +82,18 @@ def _values_text(learnables, values) -> str:
     return ", ".join(f"{setting_word(item.key)} {v:.5g}" for item, v in zip(learnables, values))
 
 
+def inert_note(learnables, step) -> str | None:
+    """A line naming the quantities whose gradient is exactly 0 in every window (they do not act on the
+    objective over such windows), or None."""
+    inert = [setting_word(item.key) for j, item in enumerate(learnables)
+             if step.used and step.gradient[j] == 0.0 and step.gradient_error[j] == 0.0]
+    if not inert:
+        return None
+    return (f"  note: the gradient with respect to {', '.join(inert)} is exactly 0 in every window: it does not act on "
+            "this objective over such windows (a setting the filter does not use, or one that acts only through "
+            "later forecasts in a window of one cycle)")
+
+
 def step_line(learnables, total: int):
     def report(step):
         head = f"step {step.iteration:>3}/{total}"
@@ -96,6 +108,9 @@ def step_line(learnables, total: int):
         skipped = f"; {step.nonfinite} non-finite windows left out" if step.nonfinite else ""
         print(f"{head}: objective {step.objective:.5f}; {_values_text(learnables, step.values)}; "
               f"gradient {gradients}{skipped} ({step.seconds:.2f} s)", flush=True)
+        note = inert_note(learnables, step) if step.iteration == 0 else None
+        if note:
+            print(note, flush=True)
 
     return report
 
@@ -176,6 +191,9 @@ def run_windows(cfg, plan, learnables, options, folder) -> int:
         bad = f"; {int((~finite).sum())} non-finite windows left out" if (~finite).any() else ""
         print(f"  window {window:>4} cycles ({windows} x {plan.replicates}): {parts}{bad} ({seconds:.2f} s)",
               flush=True)
+        note = inert_note(learnables, step)
+        if note:
+            print(note, flush=True)
     written = write_windows(folder, learnables, measured, options.objective)
     print(f"study: {folder}  ({', '.join(os.path.basename(p) for p in written)})")
     return 0

@@ -163,6 +163,9 @@ def check_experiment(cfg, options: LearnOptions) -> tuple:
         raise ConfigError(f"filter.transform_solver={cfg.filter.transform_solver} is not allowed when learning: "
                           "eigh (the Newton-Schulz loop's length depends on the data, which reverse-mode "
                           "differentiation does not go through)")
+    if options.objective == "innovation" and plan.setup.filter.members < 2:
+        raise ConfigError(f"learn.objective=innovation is not allowed with filter={spec.name}: it carries one state, "
+                          "and the innovation likelihood needs an ensemble's covariance; use learn.objective=truth")
     if plan.setup.smoother_lag or plan.setup.estimated or int(cfg.get("analysis_every", 1)) > 1:
         raise ConfigError("a learning study runs the filter alone: set smoother.lag=0, estimate.parameters=[] "
                           "and analysis_every=1")

@@ -97,6 +97,7 @@ def test_the_windows_mode_measures_the_gradient_per_window_length(tmp_path, caps
     rows = _rows(tmp_path, "window_gradients.csv")
     assert [int(r["window"]) for r in rows] == [1, 5, 20] and [int(r["windows"]) for r in rows] == [120, 24, 6]
     assert float(rows[0]["gradient_filter.radius"]) == 0.0
+    assert "radius is exactly 0 in every window" in capsys.readouterr().out
     for row in rows:
         for key in ("filter.inflation", "filter.radius"):
             if row["window"] != "1" or key == "filter.inflation":
@@ -120,6 +121,8 @@ def test_the_windows_mode_measures_the_gradient_per_window_length(tmp_path, caps
     (["learn.parameters=[filter.inflation]", "learn.colour=red"], ["learn.colour", "learn.window"]),
     (["learn.parameters=[filter.inflation]", "filter.members=10,20"], ["one experiment"]),
     (["learn.parameters=filter.inflation"], ["a list in brackets"]),
+    (["learn.parameters=[filter.b_scale]", "filter=3dvar"], ["filter=3dvar", "learn.objective=truth"]),
+    (["learn.parameters=[filter.inflation]", "filter=ienks"], ["filter=ienks", "cannot be differentiated"]),
 ])
 def test_bad_input_is_refused_in_one_line_with_nothing_written(tmp_path, capsys, argv, words):
     study = tmp_path / "study"
