@@ -1,8 +1,7 @@
-"""Console script ``assimbench-learn``: settings and forecast-model parameters learned by gradients
-through the cycle.
+"""assimbench-learn: filter settings and forecast-model parameters learned by gradients through the cycle.
 
-    assimbench-learn forecast_model=lorenz96 forecast_model.forcing=7 \\
-        'learn.parameters=[forecast_model.forcing]' cycles=1500 burn_in=100 replicates=2 study=studies/forcing
+    assimbench-learn forecast_model=lorenz96 forecast_model.forcing=7 filter.inflation=1.03 \\
+        'learn.parameters=[forecast_model.forcing]' cycles=600 burn_in=100 replicates=2 study=studies/forcing
 
 Takes the main command's overrides (or ``--config-path DIR --config-name NAME``) and the study's keys
 (:mod:`assimbench.learning.study`). ``learn.mode=fit`` steps the learned quantities down the gradient
@@ -25,11 +24,11 @@ from assimbench.commands._hydra import compose_jobs, fail, prepare_hydra, user_c
 from assimbench.compile_cache import switch_on as switch_on_compile_cache
 from assimbench.config.checks import ConfigError
 from assimbench.io.atomic import unwritable
-from assimbench.learning.checks import check_runs
+from assimbench.learning.checks import check_runs, check_warnings
 from assimbench.learning.learnables import free_values
 from assimbench.learning.loop import learn, summarise
 from assimbench.learning.outputs import OBJECTIVE_WORDS, write_fit, write_windows
-from assimbench.learning.study import check_experiment, split_arguments, study_folder
+from assimbench.learning.study import LEARNABLE_FILTERS, check_experiment, split_arguments, study_folder
 from assimbench.learning.windows import make_gradient_pass, make_twin_data
 from assimbench.report.words import setting_word, value_text
 from assimbench.twin.cycling import replicate_keys
@@ -50,7 +49,13 @@ The study's own keys (defaults in brackets):
   learn.nonfinite=stop|skip [stop] a window whose gradient is not finite: stop, or leave it out
   learn.mode=fit|windows [fit]     learn, or measure the gradient against the window length
   learn.windows=[1,2,5,10,20,40]   the window lengths of learn.mode=windows
-  study=PATH [learning]            the folder of the study's files""").replace("``", "")
+  study=PATH [learning]            the folder of the study's files
+
+Every key of the main command is accepted too (the experiment: cycles, burn_in, replicates, seed,
+the filter, the forecast model...). Filters: etkf, letkf, ensrf, enkf, denkf, enkfn; 3dvar and 4dvar
+with learn.objective=truth. Files written into the study folder: learned.yaml (run it with
+assimbench --config-path STUDY --config-name learned), learning.csv, checks.csv, learning_curve.png;
+with learn.mode=windows: window_gradients.csv, window_gradients.png.""").replace("``", "")
 
 
 def prepare(argv: list) -> tuple:
@@ -75,7 +80,11 @@ def check_compiles(plan, program, free, data) -> None:
         program.lower(free, data, plan.settings).compile()
     except Exception as err:  # noqa: BLE001 - JAX reports a non-differentiable step by several types
         first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
-        raise ConfigError(f"filter={plan.choice.filter.name} cannot be differentiated through the cycle: {first}") from None
+        loop = "while_loop" in first or "fori_loop" in first
+        why = ("its analysis runs a loop until it converges, which reverse-mode differentiation does not go "
+               "through" if loop else f"JAX: {first}")
+        raise ConfigError(f"filter={plan.choice.filter.name} cannot be differentiated through the cycle: {why}; "
+                          f"choose one of {LEARNABLE_FILTERS}") from None
 
 
 def _values_text(learnables, values) -> str:
@@ -115,8 +124,7 @@ def step_line(learnables, total: int):
     return report
 
 
-def run_fit(cfg, plan, learnables, options, folder) -> int:
-    start = [float(OmegaConf.select(cfg, item.key)) for item in learnables]
+def _header(plan, learnables, options, start) -> None:
     windows = (plan.cycles - plan.burn_in) // options.window
     print(f"{COMMAND}: {plan.title}")
     print(f"  learning {', '.join(item.key for item in learnables)} from {_values_text(learnables, start)}; "
@@ -124,29 +132,56 @@ def run_fit(cfg, plan, learnables, options, folder) -> int:
           + (" (observations only)" if options.objective == "innovation" else " (needs the truth)"))
     print(f"  {windows} windows of {options.window} cycles x {plan.replicates} replicate"
           f"{'s' if plan.replicates > 1 else ''} after {plan.burn_in} burn-in cycles; {options.optimizer}, rate "
-          f"{options.rate:g}, {options.iterations} steps; unconstrained: "
+          f"{options.rate:g}, {options.iterations} step{'s' if options.iterations != 1 else ''}; unconstrained: "
           + ", ".join(f"{setting_word(i.key)} {i.described}" for i in learnables), flush=True)
+
+
+def verdict(gradient: float, error: float) -> str:
+    """How a learned value ended: no effect (gradient 0 in every window), settled (its 95% interval
+    holds 0), or still sloped."""
+    if gradient == 0.0 and error == 0.0:
+        return "gradient 0 in every window: it does not act on this objective here, so nothing was learned"
+    if abs(gradient) <= 1.96 * error:
+        return f"gradient {gradient:+.3g} +- {error:.2g}: settled"
+    return f"gradient {gradient:+.3g} +- {error:.2g}: still sloped: more steps or a larger rate"
+
+
+def stopped_advice(history, learnables, options) -> str:
+    """What to do after a fit stopped on non-finite windows."""
+    good = [s for s in history.steps if np.isfinite(s.objective) and s.nonfinite == 0]
+    first = history.steps[-1]
+    if first.iteration == 0 and first.used == 0:
+        return ("every window is non-finite at the starting values: the filter blows up there; start where it "
+                "runs (a main-command run at these values shows it)")
+    advice = "; a smaller learn.rate or learn.window keeps the filter from diverging"
+    if options.nonfinite == "stop":
+        advice = "; learn.nonfinite=skip leaves such windows out (counted)" + advice
+    return (f"the last finite step ran at {_values_text(learnables, good[-1].values)}" if good else "") + advice
+
+
+def run_fit(cfg, plan, learnables, options, folder) -> int:
+    start = [float(OmegaConf.select(cfg, item.key)) for item in learnables]
+
+    def compiled(program, free, data):
+        check_compiles(plan, program, free, data)  # refusals before anything is printed
+        _header(plan, learnables, options, start)
+
     _, history = learn(cfg, plan, learnables, options, report=step_line(learnables, options.iterations),
-                       compiled=lambda program, free, data: check_compiles(plan, program, free, data))
+                       compiled=compiled)
     finished = history.stopped is None
     last = history.steps[-1]
     checks = None
     if finished:
         print("learned (the gradient at the learned values, +- its standard error over windows):")
         for j, item in enumerate(learnables):
-            gradient, error = last.gradient[j], last.gradient_error[j]
-            settled = "settled" if abs(gradient) <= 2 * error else "still sloped: more steps or a larger rate"
-            print(f"  {item.key}={value_text(float(last.values[j]))}  (gradient {gradient:+.3g} +- {error:.2g}: "
-                  f"{settled})")
+            print(f"  {item.key}={value_text(float(last.values[j]))}  ("
+                  f"{verdict(last.gradient[j], last.gradient_error[j])})")
         checks = check_runs(cfg, [item.key for item in learnables], start, last.values)
         print_checks(learnables, checks)
     written = write_fit(folder, cfg, learnables, history, options.objective, finished, checks)
     if not finished:
-        good = [s for s in history.steps if np.isfinite(s.objective) and s.nonfinite == 0]
-        print(f"{COMMAND}: stopped at {history.stopped}; no learned.yaml written"
-              + (f"; the last finite step ran at {_values_text(learnables, good[-1].values)}" if good else "")
-              + "; learn.nonfinite=skip leaves such windows out (counted), a smaller learn.rate or learn.window "
-              "keeps the filter from diverging", file=sys.stderr)
+        print(f"{COMMAND}: stopped at {history.stopped}; no learned.yaml written; "
+              + stopped_advice(history, learnables, options).lstrip("; "), file=sys.stderr)
     print(f"study: {folder}  ({', '.join(os.path.basename(p) for p in written)})")
     return 0 if finished else 1
 
@@ -156,27 +191,27 @@ def print_checks(learnables, checks: list) -> None:
     for row in checks:
         values = _values_text(learnables, [row[item.key] for item in learnables])
         lost = f"{row['lost']} of {row['replicates']} replicates lost" + (" (LOST)" if row["lost"] else "")
+        ratio = f"{row['innovation_ratio']:.3f}" if np.isfinite(row["innovation_ratio"]) else "n/a"
         print(f"  {row['check'] + ':':<22} {values}; seed {row['seed']}: analysis RMSE {row['rmse_analysis']:.4f} +- "
-              f"{(row['rmse_analysis_high'] - row['rmse_analysis_low']) / 2:.4f}, innovation ratio "
-              f"{row['innovation_ratio']:.3f}; {lost}")
-    if any(row["lost"] for row in checks[1:]):
-        print("  the learned values lose the truth in some replicate: the gradient settled at the edge of "
-              "divergence, which truncated windows see only where it happens; a safer value lies away from it "
-              "(assimbench-tune keeps every replicate)")
+              f"{(row['rmse_analysis_high'] - row['rmse_analysis_low']) / 2:.4f}, innovation ratio {ratio}; {lost}")
+    for line in check_warnings(checks):
+        print("  " + line)
 
 
 def run_windows(cfg, plan, learnables, options, folder) -> int:
     start = [float(OmegaConf.select(cfg, item.key)) for item in learnables]
     free = free_values(learnables, start)
     data = make_twin_data(plan.setup, plan.settings, replicate_keys(plan.seed, plan.replicates), plan.cycles)
-    print(f"{COMMAND}: {plan.title}")
-    print(f"  the gradient of the {OBJECTIVE_WORDS[options.objective]} at {_values_text(learnables, start)}, "
-          f"per window length (spread: the std of one window's gradient over windows and replicates)", flush=True)
     measured = []
     for window in options.windows:
         windows = (plan.cycles - plan.burn_in) // window
         program = make_gradient_pass(plan.setup, learnables, options.objective, window, windows, plan.burn_in)
         check_compiles(plan, program, free, data)
+        if not measured:  # after the first compile: a refusal comes before any output
+            print(f"{COMMAND}: {plan.title}")
+            print(f"  the gradient of the {OBJECTIVE_WORDS[options.objective]} at {_values_text(learnables, start)}, "
+                  f"per window length (spread: the std of one window's gradient over windows and replicates)",
+                  flush=True)
         started = time.perf_counter()
         losses, grads = jax.block_until_ready(program(free, data, plan.settings))
         seconds = time.perf_counter() - started

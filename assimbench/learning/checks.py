@@ -6,8 +6,9 @@ happens, so a setting that is cheap in most windows (little inflation) can be le
 edge of divergence. The check runs say so: the analysis RMSE with its 95% interval, the innovation
 ratio (mean squared innovation over the predicted variance: about 1 for a consistent filter) and the
 replicates lost (blown up, or no better than the observations, as the tuner counts them), at the
-start, at the learned values, and at the learned values on fresh truths and observations (the seed
-+ 1).
+start and at the learned values, each on the study's seeds and on fresh truths and observations (the
+seed + 1), with warnings where the learned values did worse than the start on fresh seeds or lost a
+replicate the start kept.
 """
 
 import copy
@@ -18,7 +19,8 @@ from omegaconf import OmegaConf
 from assimbench.api import run_experiment
 from assimbench.tuning.study import lost_replicates
 
-CHECKS = (("start", "start", 0), ("learned", "learned", 0), ("learned, fresh seeds", "learned", 1))
+CHECKS = (("start", "start", 0), ("start, fresh seeds", "start", 1), ("learned", "learned", 0),
+          ("learned, fresh seeds", "learned", 1))
 
 
 def check_run(cfg, values: dict, seed_shift: int = 0) -> dict:
@@ -48,3 +50,27 @@ def check_runs(cfg, keys: list, start, learned) -> list:
         values = dict(zip(keys, start if which == "start" else learned))
         rows.append({"check": label, **{k: float(v) for k, v in values.items()}, **check_run(cfg, values, shift)})
     return rows
+
+
+def check_warnings(checks: list) -> list:
+    """Warnings from the check runs of :func:`check_runs` (by label): the learned values lose replicates
+    the start kept (at the edge of divergence), or analyse worse than the start on fresh seeds beyond
+    both intervals (the truncated gradient pointed the wrong way, or fitted the study's seeds)."""
+    rows = {row["check"]: row for row in checks}
+    out = []
+    start_lost = rows["start"]["lost"] + rows["start, fresh seeds"]["lost"]
+    learned_lost = rows["learned"]["lost"] + rows["learned, fresh seeds"]["lost"]
+    if learned_lost and not start_lost:
+        out.append("WARNING: the learned values lose the truth in replicates the start kept: the gradient went to "
+                   "the edge of divergence, which truncated windows see only where it happens; a safer value lies "
+                   "between the start and the learned one (assimbench-tune keeps every replicate)")
+    elif learned_lost:
+        out.append("WARNING: the learned values still lose the truth in some replicate (the start did too): the fit "
+                   "has not reached values where the filter keeps the truth; more steps, or start nearer")
+    fresh_start, fresh_learned = rows["start, fresh seeds"], rows["learned, fresh seeds"]
+    if fresh_learned["rmse_analysis_low"] > fresh_start["rmse_analysis_high"]:
+        out.append("WARNING: on fresh seeds the learned values analyse worse than the start (analysis RMSE "
+                   f"{fresh_learned['rmse_analysis']:.4f} against {fresh_start['rmse_analysis']:.4f}): the truncated "
+                   "gradient pointed the wrong way here, or the fit followed the study's own seeds; keep the start, "
+                   "or try another learn.window (learn.mode=windows) and more cycles")
+    return out

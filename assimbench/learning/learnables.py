@@ -103,8 +103,11 @@ def learnable(key: str, settings: dict, traced: dict, value: float, bounds: dict
         raise ConfigError(f"learn.parameters: {key} is not allowed: a traced setting of the chosen filter or "
                           f"forecast model ({allowed or 'none'})")
     node = settings[section]
-    if name not in node or np.ndim(node[name]) != 0:
-        raise ConfigError(f"learn.parameters: {key} is not allowed: a scalar the run traces ({allowed})")
+    if name not in node:
+        raise ConfigError(f"learn.parameters: {key} is not allowed here: the filter as configured does not use it "
+                          f"(switch on the piece it belongs to, e.g. filter.adaptive=true for filter.adaptive_std)")
+    if np.ndim(node[name]) != 0:
+        raise ConfigError(f"learn.parameters: {key} is not allowed: a scalar ({allowed})")
     chosen, low, high = ("logistic",) + tuple(bounds[key]) if bounds and key in bounds else map_of(name)
     inside = {"log": value > 0, "shifted_log": value > 1, "logistic": low < value < high, "identity": True}[chosen]
     if not (math.isfinite(value) and inside):

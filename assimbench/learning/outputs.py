@@ -134,18 +134,20 @@ def window_figure(learnables: tuple, measured: list, objective: str, path: str) 
             top.set_title(setting_word(item.key) + (" (per unit)" if len(learnables) > 1 else ""))
             if j == 0:
                 top.set_ylabel("spread of one window's\ngradient (std over windows)")
-            bottom.errorbar(lengths, mean, yerr=1.96 * np.nan_to_num(error), marker="o", capsize=3,
+            # Windows whose gradient has exploded would flatten the others: they are left out of this
+            # panel (the top one shows their spread), and the panel says so.
+            calm = np.isfinite(spread) & (spread <= 10.0 * np.nanmin(spread))
+            shown = calm if calm.sum() >= 2 else np.ones_like(calm)
+            bottom.errorbar(lengths[shown], mean[shown], yerr=1.96 * np.nan_to_num(error[shown]), marker="o", capsize=3,
                             color=OKABE_ITO["blue"])
             bottom.axhline(0.0, color="black", lw=0.8)
-            # Windows whose gradient has exploded would flatten the others: keep them off the scale, said.
-            calm = np.isfinite(spread) & (spread <= 10.0 * np.nanmin(spread))
             if not calm.all() and calm.sum() >= 2:
                 low = np.min((mean - 1.96 * error)[calm])
                 high = np.max((mean + 1.96 * error)[calm])
                 margin = 0.15 * (high - low) if high > low else 1.0
                 bottom.set_ylim(min(low, 0.0) - margin, max(high, 0.0) + margin)
                 first = int(lengths[~calm].min())
-                bottom.text(0.02, 0.96, f"windows of {first} cycles and more: off the scale\n(spread over 10 x the "
+                bottom.text(0.02, 0.96, f"windows of {first} cycles and more: left out\n(spread over 10 x the "
                             "shortest window's)", transform=bottom.transAxes, va="top", fontsize="small")
             if j == 0:
                 bottom.set_ylabel("mean gradient\n(95% interval)")

@@ -38,6 +38,8 @@ from assimbench.learning.learnables import LEARNABLE_SECTIONS, learnable
 from assimbench.learning.objectives import OBJECTIVES
 
 OPTIMIZERS = ("adam", "sgd")
+# Said in refusals; the command finds out for any other filter by compiling its gradient.
+LEARNABLE_FILTERS = "etkf, letkf, ensrf, enkf, denkf, enkfn (3dvar and 4dvar with learn.objective=truth)"
 MODES = ("fit", "windows")
 NONFINITE = ("stop", "skip")
 DEFAULTS = {"parameters": None, "objective": "innovation", "window": 10, "iterations": 40, "rate": 0.2,
@@ -157,8 +159,7 @@ def check_experiment(cfg, options: LearnOptions) -> tuple:
     if not spec.assimilates or spec.weighted:
         why = ("it does not assimilate" if not spec.assimilates else
                "its resampling draws members by index, which has no gradient")
-        raise ConfigError(f"filter={spec.name} cannot be learned through: {why}; choose an ensemble Kalman "
-                          "filter or a variational one")
+        raise ConfigError(f"filter={spec.name} cannot be learned through: {why}; choose one of {LEARNABLE_FILTERS}")
     if cfg.filter.get("transform_solver", "eigh") != "eigh":
         raise ConfigError(f"filter.transform_solver={cfg.filter.transform_solver} is not allowed when learning: "
                           "eigh (the Newton-Schulz loop's length depends on the data, which reverse-mode "

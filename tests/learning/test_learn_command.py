@@ -11,6 +11,7 @@ from assimbench.api import run_experiment
 from assimbench.commands._hydra import compose_jobs, user_config_arguments
 from assimbench.commands.learn import main
 from assimbench.config.composition import compose_config
+from assimbench.learning.checks import check_warnings
 
 FORCING_EXPERIMENT = ["forecast_model=lorenz96", "forecast_model.forcing=7", "filter.inflation=1.03", "cycles=600",
                       "burn_in=100", "replicates=2"]
@@ -130,3 +131,24 @@ def test_bad_input_is_refused_in_one_line_with_nothing_written(tmp_path, capsys,
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1 and all(w in err for w in words), err
     assert not study.exists()
+
+
+def _check_row(label, rmse, half, lost):
+    return {"check": label, "rmse_analysis": rmse, "rmse_analysis_low": rmse - half, "rmse_analysis_high": rmse + half,
+            "lost": lost}
+
+
+@pytest.mark.parametrize("learned_fresh, learned_lost, start_lost, expected", [
+    (0.200, 0, 0, []),
+    (0.256, 0, 0, ["analyse worse than the start"]),
+    (0.200, 1, 0, ["edge of divergence"]),
+    (0.200, 1, 2, ["the start did too"]),
+])
+def test_the_check_runs_warn_when_the_learned_values_do_worse(learned_fresh, learned_lost, start_lost, expected):
+    """The measured case of the README (ETKF inflation learned with the truth objective: 0.2555 +- 0.0207
+    on fresh seeds against the start's 0.2073 +- 0.0080) warns; overlapping intervals do not."""
+    checks = [_check_row("start", 0.2008, 0.0066, start_lost), _check_row("start, fresh seeds", 0.2073, 0.0080, 0),
+              _check_row("learned", 0.1725, 0.0094, learned_lost),
+              _check_row("learned, fresh seeds", learned_fresh, 0.0207 if learned_fresh > 0.25 else 0.008, 0)]
+    warnings = check_warnings(checks)
+    assert len(warnings) == len(expected) and all(w in line for w, line in zip(expected, warnings)), warnings
