@@ -4,20 +4,22 @@ Each iteration runs one gradient pass (:func:`assimbench.learning.windows.make_g
 the whole twin at the current values: the objective is the mean window objective over replicates and
 windows, the gradient the mean window gradient, and its standard error the windows' spread over the
 square root of their number (windows treated as independent: an estimate of the noise, not a bound).
-The optimizer is Optax's (Adam by default: its steps are of the rate's size in every unconstrained
-coordinate whatever the gradient's scale, which differs by orders of magnitude between an
-inflation and a forcing; Kingma & Ba 2015, ICLR; with less momentum than usual,
+The optimizer is Adam by default (:class:`Optimizer`: its steps are of the rate's size in every
+unconstrained coordinate whatever the gradient's scale, which differs by orders of magnitude between
+an inflation and a forcing; Kingma & Ba 2015, ICLR; with less momentum than usual,
 :data:`ADAM_MOMENTUM`), with the rate decaying along a cosine to 2% of itself so that the last steps
-settle. Every pass is the same compiled program: values are traced.
+settle. It is written here, a few lines of NumPy, rather than taken from Optax: importing Optax
+imports absl's logging, which broke pytest's output capture for every later test in the same
+process (seen in the clean-clone CI). Every pass is the same compiled program: values are traced.
 """
 
+import math
 import time
 from dataclasses import dataclass, field
 
 import jax
 import jax.numpy as jnp
 import numpy as np
-import optax
 from omegaconf import OmegaConf
 
 from assimbench.learning.learnables import free_values, values_of
@@ -87,17 +89,46 @@ def summarise(iteration: int, learnables: tuple, free, losses, grads, seconds: f
 ADAM_MOMENTUM = 0.5
 
 
-def optimizer_of(name: str, rate: float, iterations: int):
-    schedule = optax.cosine_decay_schedule(rate, max(iterations, 1), alpha=0.02)
-    return optax.adam(schedule, b1=ADAM_MOMENTUM) if name == "adam" else optax.sgd(schedule)
+ADAM_DECAY, ADAM_EPSILON = 0.999, 1e-8  # Kingma & Ba (2015)'s defaults for the second moment
+FINAL_RATE = 0.02  # the cosine decay ends at this fraction of the rate
+
+
+def cosine_rate(rate: float, step: int, steps: int) -> float:
+    """The step size of step ``step`` (0, 1, ...): rate ((1 - a) (1 + cos(pi min(step, steps) / steps)) / 2 + a),
+    a = :data:`FINAL_RATE` (cosine annealing, Loshchilov & Hutter 2017, ICLR; from memory)."""
+    steps = max(steps, 1)
+    return rate * ((1.0 - FINAL_RATE) * 0.5 * (1.0 + math.cos(math.pi * min(step, steps) / steps)) + FINAL_RATE)
+
+
+class Optimizer:
+    """Adam (Kingma & Ba 2015, ICLR, Algorithm 1) or plain gradient descent on a vector, with the
+    cosine-decaying rate; ``step(gradient, values) -> values``. Adam: m <- b1 m + (1 - b1) g,
+    v <- b2 v + (1 - b2) g^2, u <- u - rate_t (m / (1 - b1^t)) / (sqrt(v / (1 - b2^t)) + eps)."""
+
+    def __init__(self, name: str, rate: float, steps: int):
+        self.name, self.rate, self.steps = name, rate, steps
+        self.count, self.first, self.second = 0, None, None
+
+    def step(self, gradient: np.ndarray, values: np.ndarray) -> np.ndarray:
+        gradient = np.asarray(gradient, dtype=np.float64)
+        rate = cosine_rate(self.rate, self.count, self.steps)
+        self.count += 1
+        if self.name == "sgd":
+            return values - rate * gradient
+        if self.first is None:
+            self.first, self.second = np.zeros_like(gradient), np.zeros_like(gradient)
+        self.first = (1.0 - ADAM_MOMENTUM) * gradient + ADAM_MOMENTUM * self.first
+        self.second = (1.0 - ADAM_DECAY) * gradient**2 + ADAM_DECAY * self.second
+        first = self.first / (1.0 - ADAM_MOMENTUM**self.count)
+        second = self.second / (1.0 - ADAM_DECAY**self.count)
+        return values - rate * first / (np.sqrt(second) + ADAM_EPSILON)
 
 
 def fit(gradient_pass, free, data, settings, learnables: tuple, options, report=lambda step: None) -> tuple:
     """(final unconstrained values, History): ``options.iterations`` optimizer steps from ``free``, then
     one more pass at the final values (the last Step: what the written values give). ``report(step)``
     after every pass."""
-    optimizer = optimizer_of(options.optimizer, options.rate, options.iterations)
-    state = optimizer.init(free)
+    optimizer = Optimizer(options.optimizer, options.rate, options.iterations)
     history = History()
     keep_finite = options.nonfinite == "skip"
     for iteration in range(options.iterations + 1):
@@ -112,8 +143,7 @@ def fit(gradient_pass, free, data, settings, learnables: tuple, options, report=
             break
         if iteration == options.iterations:
             break
-        updates, state = optimizer.update(jnp.asarray(mean), state, free)
-        free = optax.apply_updates(free, updates)
+        free = jnp.asarray(optimizer.step(mean, np.asarray(free)))
     return free, history
 
 

@@ -17,6 +17,7 @@ from assimbench.config.checks import ConfigError
 from assimbench.config.composition import compose_config
 from assimbench.filters.kalman.precision_solvers import solve_eigh
 from assimbench.learning.learnables import free_values, learnable
+from assimbench.learning.loop import Optimizer, cosine_rate
 from assimbench.learning.objectives import innovation_loss
 from assimbench.learning.study import LearnOptions, check_experiment
 from assimbench.learning.windows import make_gradient_pass, make_twin_data, make_window_loss
@@ -202,3 +203,16 @@ def test_at_the_truths_forcing_the_likelihood_gradient_is_zero_on_average():
         grads = np.asarray(grads).reshape(-1)
         mean, error = grads.mean(), grads.std(ddof=1) / np.sqrt(grads.size)
         assert (abs(mean) < 3 * error) if centred else (mean < -10 * error), (forcing, mean, error)
+
+
+def test_the_optimizer_takes_adams_steps():
+    """Adam's first step is rate g / (|g| + eps) per coordinate whatever the gradient's scale (its
+    bias corrections make m = g and v = g^2 at step 1; Kingma & Ba 2015, ICLR, Algorithm 1), the
+    rate follows the cosine from rate to 2% of it, and plain descent steps rate g."""
+    adam = Optimizer("adam", 0.2, 10)
+    gradient = np.array([3e-4, -50.0])
+    step = adam.step(gradient, np.zeros(2))
+    np.testing.assert_allclose(step, -0.2 * gradient / (np.abs(gradient) + 1e-8), rtol=1e-12)
+    assert cosine_rate(0.2, 0, 10) == pytest.approx(0.2) and cosine_rate(0.2, 10, 10) == pytest.approx(0.004)
+    assert cosine_rate(0.2, 5, 10) == pytest.approx(0.2 * (0.98 * 0.5 + 0.02))
+    np.testing.assert_allclose(Optimizer("sgd", 0.2, 10).step(gradient, np.ones(2)), 1.0 - 0.2 * gradient)
