@@ -73,11 +73,12 @@ def prepare(argv: list) -> tuple:
     return cfg, plan, learnables, options, folder
 
 
-def check_compiles(plan, program, free, data) -> None:
-    """Compile ``program``; ConfigError when the filter cannot be differentiated (a loop whose length
+def check_compiles(plan, program, free, data):
+    """Compile ``program`` and return the compiled executable (called in its place, so the work is done
+    once); ConfigError when the filter cannot be differentiated (a loop whose length
     depends on the data, a non-differentiable operation)."""
     try:
-        program.lower(free, data, plan.settings).compile()
+        return program.lower(free, data, plan.settings).compile()
     except Exception as err:  # noqa: BLE001 - JAX reports a non-differentiable step by several types
         first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
         loop = "while_loop" in first or "fori_loop" in first
@@ -163,8 +164,9 @@ def run_fit(cfg, plan, learnables, options, folder) -> int:
     start = [float(OmegaConf.select(cfg, item.key)) for item in learnables]
 
     def compiled(program, free, data):
-        check_compiles(plan, program, free, data)  # refusals before anything is printed
+        executable = check_compiles(plan, program, free, data)  # refusals before anything is printed
         _header(plan, learnables, options, start)
+        return executable
 
     _, history = learn(cfg, plan, learnables, options, report=step_line(learnables, options.iterations),
                        compiled=compiled)
@@ -206,7 +208,7 @@ def run_windows(cfg, plan, learnables, options, folder) -> int:
     for window in options.windows:
         windows = (plan.cycles - plan.burn_in) // window
         program = make_gradient_pass(plan.setup, learnables, options.objective, window, windows, plan.burn_in)
-        check_compiles(plan, program, free, data)
+        program = check_compiles(plan, program, free, data)
         if not measured:  # after the first compile: a refusal comes before any output
             print(f"{COMMAND}: {plan.title}")
             print(f"  the gradient of the {OBJECTIVE_WORDS[options.objective]} at {_values_text(learnables, start)}, "

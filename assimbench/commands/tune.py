@@ -12,16 +12,13 @@ the tuned table, the figures and one ready-to-run config per point
 back, not recomputed. Bad input: one line on stderr, exit status 2, nothing written.
 """
 
-import copy
 import dataclasses
 import math
 import os
 import sys
 
 import numpy as np
-from omegaconf import OmegaConf
 
-from assimbench.api import run_experiment
 from assimbench.commands._hydra import compose_jobs, expand_jobs, fail, job_folder, prepare_hydra, user_config_arguments
 from assimbench.config.checks import ConfigError
 from assimbench.io.atomic import unwritable
@@ -32,9 +29,9 @@ from assimbench.tuning.study import (
     Point,
     check_point,
     evaluator,
-    lost_replicates,
     pass_cost,
     split_arguments,
+    standalone_run,
     study_folder,
 )
 
@@ -129,15 +126,9 @@ def confirm(point, tuned: dict, objective: str, seed_shift: int = 0) -> tuple:
     tuned settings; with ``seed_shift`` 0 the search's seeds (exactly what the point's written config
     gives with the main command), else the seed moved by it: fresh truths and observations. A
     replicate is lost as in the search (:func:`lost_replicates`)."""
-    cfg = copy.deepcopy(point.config)
-    for key, value in tuned.items():
-        OmegaConf.update(cfg, key, float(value), merge=False)
-    OmegaConf.update(cfg, "output", None, merge=False)
-    OmegaConf.update(cfg, "seed", int(cfg.seed) + seed_shift, merge=False)
-    result = run_experiment(cfg, keep_series=False)
+    result, cfg, lost = standalone_run(point.config, tuned, seed_shift)
     summary = result.summary
     value = (summary[objective], summary.get(objective + "_low", math.nan), summary.get(objective + "_high", math.nan))
-    lost = int(lost_replicates(result, cfg).sum())
     if not math.isfinite(value[0]):
         lost = max(lost, 1)
     return value, lost, int(cfg.cycles) * int(cfg.replicates)

@@ -11,13 +11,9 @@ seed + 1), with warnings where the learned values did worse than the start on fr
 replicate the start kept.
 """
 
-import copy
 import math
 
-from omegaconf import OmegaConf
-
-from assimbench.api import run_experiment
-from assimbench.tuning.study import lost_replicates
+from assimbench.tuning.study import standalone_run
 
 CHECKS = (("start", "start", 0), ("start, fresh seeds", "start", 1), ("learned", "learned", 0),
           ("learned, fresh seeds", "learned", 1))
@@ -26,16 +22,8 @@ CHECKS = (("start", "start", 0), ("start, fresh seeds", "start", 1), ("learned",
 def check_run(cfg, values: dict, seed_shift: int = 0) -> dict:
     """One run of ``cfg`` with ``values`` (config path -> number) and the seed moved by ``seed_shift``:
     its analysis RMSE (mean, low, high), innovation ratio and lost replicates."""
-    one = copy.deepcopy(cfg)
-    for key, value in values.items():
-        OmegaConf.update(one, key, float(value), merge=False)
-    OmegaConf.update(one, "output", None, merge=False)
-    OmegaConf.update(one, "seed", int(one.seed) + seed_shift, merge=False)
-    result = run_experiment(one, keep_series=False)
+    result, one, lost = standalone_run(cfg, values, seed_shift)
     summary = result.summary
-    lost = int(lost_replicates(result, one).sum())
-    if not math.isfinite(summary["rmse_analysis"]):
-        lost = max(lost, 1)
     return {"seed": int(one.seed), "rmse_analysis": summary["rmse_analysis"],
             "rmse_analysis_low": summary.get("rmse_analysis_low", math.nan),
             "rmse_analysis_high": summary.get("rmse_analysis_high", math.nan),
@@ -44,7 +32,7 @@ def check_run(cfg, values: dict, seed_shift: int = 0) -> dict:
 
 
 def check_runs(cfg, keys: list, start, learned) -> list:
-    """The three check runs of :data:`CHECKS`, each a dict with its label and values."""
+    """The check runs of :data:`CHECKS`, each a dict with its label and values."""
     rows = []
     for label, which, shift in CHECKS:
         values = dict(zip(keys, start if which == "start" else learned))

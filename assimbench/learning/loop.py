@@ -150,11 +150,11 @@ def fit(gradient_pass, free, data, settings, learnables: tuple, options, report=
 def learn(cfg, plan, learnables: tuple, options, report=lambda step: None, compiled=None) -> tuple:
     """(final unconstrained values, History) of a whole fit of checked ``cfg`` (:func:`check_experiment`
     gives ``plan`` and ``learnables``): the twin's data, the compiled gradient pass (``compiled(program,
-    free, data)`` may check it first), then :func:`fit` from the configured values."""
+    free, data)`` may check and compile it first, returning the executable to call), then :func:`fit` from the configured values."""
     data = make_twin_data(plan.setup, plan.settings, replicate_keys(plan.seed, plan.replicates), plan.cycles)
     free = free_values(learnables, [float(OmegaConf.select(cfg, item.key)) for item in learnables])
     windows = (plan.cycles - plan.burn_in) // options.window
     program = make_gradient_pass(plan.setup, learnables, options.objective, options.window, windows, plan.burn_in)
     if compiled is not None:
-        compiled(program, free, data)
+        program = compiled(program, free, data)
     return fit(program, free, data, plan.settings, learnables, options, report)

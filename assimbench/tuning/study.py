@@ -193,6 +193,23 @@ def lost_replicates(result, cfg) -> np.ndarray:
     return lost
 
 
+def standalone_run(cfg, values: dict, seed_shift: int = 0) -> tuple:
+    """(result, the config run, lost replicates): one run of ``cfg`` with ``values`` (config path ->
+    number) set, no output file, the seed moved by ``seed_shift`` (0: the same truths and observations;
+    1: fresh ones). Lost as in the search (:func:`lost_replicates`), and at least one when the time-mean
+    analysis RMSE is not finite."""
+    one = copy.deepcopy(cfg)
+    for key, value in values.items():
+        OmegaConf.update(one, key, float(value), merge=False)
+    OmegaConf.update(one, "output", None, merge=False)
+    OmegaConf.update(one, "seed", int(one.seed) + seed_shift, merge=False)
+    result = run_experiment(one, keep_series=False)
+    lost = int(lost_replicates(result, one).sum())
+    if not math.isfinite(result.summary["rmse_analysis"]):
+        lost = max(lost, 1)
+    return result, one, lost
+
+
 def evaluator(point: Point, axes: tuple, objective: str, seed_shift: int = 0):
     """``evaluate(values) -> Evaluation``: one run of the point with the rows of ``values`` as lanes;
     with ``seed_shift``, on the seed moved by it (fresh truths and observations)."""
